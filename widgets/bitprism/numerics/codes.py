@@ -1,0 +1,234 @@
+"""encode / decode / cast: real values <-> bit patterns of any format, scalar or vectorized.
+
+Scalars (Python int, float, Fraction, Decimal, numpy scalars, ``parse`` results) take the exact
+integer path and return a Python int; arrays take the chunked numpy kernel and return an array
+of the format's code dtype with the input's shape. Both paths round once, from the exact input.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import BitprismError, UnsupportedInputError
+from ..formats import Format, FormatLike, get_format
+from .exact import ExactValue, as_exact
+from .kernel import CHUNK, SOURCE32, SOURCE64, encode_bits, source_for
+from .options import CastOptions, Overflow, Rounding, Subnormals
+from .scalar import decode_exact, encode_exact
+
+__all__ = ["cast", "decode", "encode", "is_scalar_input", "to_float_array", "value_table"]
+
+# Inputs are converted to float32/float64 in blocks of this many elements, so memory stays
+# bounded whatever the input dtype.
+_BLOCK = CHUNK * 16
+_MAX_EXACT_INT = 1 << 53
+
+
+def is_scalar_input(x: Any) -> bool:
+    """True for the values that take the exact scalar path."""
+    return not isinstance(x, (np.ndarray, list, tuple)) and not hasattr(x, "__array_interface__")
+
+
+def _float_dtype_of(arr: np.ndarray) -> np.dtype:
+    """The float dtype the kernel reads for ``arr`` (float32 or float64), or raise."""
+    dt = arr.dtype
+    if dt == np.float32 or dt == np.float64:
+        return dt
+    if dt.kind == "f" and dt.itemsize <= 4 or (dt.kind == "V" and _is_ml_float(dt)):
+        return np.dtype(np.float32)  # float16 and every ml_dtypes float fit float32 exactly
+    if dt.kind in "iub":
+        return np.dtype(np.float64)
+    if dt.kind == "f":
+        raise UnsupportedInputError(
+            f"{dt} arrays are not supported (platform-dependent extended precision); "
+            "convert to float64 first"
+        )
+    raise UnsupportedInputError(
+        f"cannot cast {dt} data: expected real numbers (float, ml_dtypes float, int or bool "
+        f"arrays); got dtype {dt!r}"
+    )
+
+
+def _is_ml_float(dt: np.dtype) -> bool:
+    try:
+        get_format(dt)
+    except BitprismError:
+        return False
+    return True
+
+
+def _check_int_range(arr: np.ndarray) -> None:
+    if arr.dtype.kind in "iu" and arr.dtype.itemsize >= 8 and arr.size:
+        lo, hi = int(arr.min()), int(arr.max())
+        if hi > _MAX_EXACT_INT or lo < -_MAX_EXACT_INT:
+            bad = int(np.flatnonzero((arr > _MAX_EXACT_INT) | (arr < -_MAX_EXACT_INT))[0])
+            raise BitprismError(
+                f"integer {arr.reshape(-1)[bad]!r} at flat index {bad} is beyond 2**53, where the "
+                "array path cannot hold integers exactly; pass it as a Python int (scalar path) "
+                "or as float64 if rounding it first is intended"
+            )
+
+
+def to_float_array(x: Any) -> np.ndarray:
+    """The input as a numpy array the kernel can read (no copy when it already is one)."""
+    arr = x if isinstance(x, np.ndarray) else np.asarray(x)
+    if arr.dtype == object:
+        raise UnsupportedInputError(
+            "object arrays are not supported: pass numbers as a float/int numpy array, "
+            "or one Python number at a time for the exact scalar path"
+        )
+    _float_dtype_of(arr)
+    _check_int_range(arr)
+    return arr
+
+
+def encode(
+    x: Any,
+    fmt: FormatLike,
+    rounding: Rounding = "roundTiesToEven",
+    overflow: Overflow = "standard",
+    subnormals: Subnormals = "keep",
+    seed: int | None = None,
+    *,
+    progress: Callable[[int], None] | None = None,
+) -> Any:
+    """Correctly rounded cast of real values ``x`` into the bit patterns of ``fmt``.
+
+    Arrays of any float dtype (ml_dtypes included), int or bool give an array of codes with
+    the same shape (dtype ``fmt.code_dtype``); a scalar gives a Python int.
+    """
+    f = get_format(fmt)
+    options = CastOptions(rounding, overflow, subnormals, seed)
+    if is_scalar_input(x):
+        rng = np.random.default_rng(seed) if options.rounding == "stochastic" else None
+        return encode_exact(as_exact(x), f, options, rng)
+    arr = to_float_array(x)
+    return _encode_array(arr, f, options, progress)
+
+
+def _encode_array(
+    arr: np.ndarray,
+    fmt: Format,
+    options: CastOptions,
+    progress: Callable[[int], None] | None = None,
+    rng: np.random.Generator | None = None,
+) -> np.ndarray:
+    out = np.empty(arr.shape, fmt.code_dtype)
+    flat_in = arr.reshape(-1)
+    flat_out = out.reshape(-1)
+    carrier = _float_dtype_of(arr)
+    src = source_for(fmt, carrier)
+    kernel_dtype = np.dtype(np.float32) if src is SOURCE32 else np.dtype(np.float64)
+    if options.rounding == "stochastic" and rng is None:
+        rng = np.random.default_rng(options.seed)
+    unchanged = options.overflow == "standard" and options.subnormals == "keep"
+    if fmt.dtype is not None and arr.dtype == fmt.dtype and unchanged:
+        np.copyto(flat_out, flat_in.view(fmt.code_dtype))
+        return out  # already in this format: the codes are the bits
+    if arr.dtype == kernel_dtype:
+        bits = flat_in.view(src.uint)
+        encode_bits(bits, src, fmt, options, flat_out, rng, progress)
+        return out
+    for start in range(0, flat_in.size, _BLOCK):
+        block = flat_in[start : start + _BLOCK].astype(kernel_dtype)
+        encode_bits(block.view(src.uint), src, fmt, options, flat_out[start : start + _BLOCK], rng, progress)
+    return out
+
+
+@lru_cache(maxsize=64)
+def value_table(fmt: Format) -> np.ndarray:
+    """float64 value of every code of a format of at most 16 bits (read-only)."""
+    if fmt.bits > 16:
+        raise BitprismError(f"value_table is for formats of at most 16 bits; {fmt.name} has {fmt.bits}")
+    table = _decode_arith(np.arange(1 << fmt.bits, dtype=np.uint64), fmt)
+    table.setflags(write=False)
+    return table
+
+
+def _decode_arith(codes: np.ndarray, fmt: Format) -> np.ndarray:
+    """Decode by field arithmetic (every value is exact in float64 by the Format invariants)."""
+    c = codes.astype(np.uint64, copy=False)
+    t = fmt.significand_bits
+    e = (c >> np.uint64(t)) & np.uint64(fmt.exponent_field_max)
+    frac = (c & np.uint64(fmt.significand_mask)).astype(np.float64)
+    if fmt.has_zero:
+        sub = e == 0
+        mant = np.where(sub, frac, frac + float(1 << t))
+        exp = np.where(sub, fmt.emin - t, e.astype(np.int64) - fmt.bias - t)
+    else:
+        mant = frac + float(1 << t)
+        exp = e.astype(np.int64) - fmt.bias - t
+    val = np.ldexp(mant, exp.astype(np.int32))
+    if fmt.signed:
+        neg = (c & np.uint64(fmt.sign_mask)) != 0
+        val = np.where(neg, -val, val)
+    mag = c & np.uint64(fmt.magnitude_mask)
+    if fmt.specials == "ieee":
+        top = e == fmt.exponent_field_max
+        val = np.where(top & (mag & np.uint64(fmt.significand_mask) == 0), np.copysign(np.inf, val), val)
+        nan = top & ((mag & np.uint64(fmt.significand_mask)) != 0)
+        val = np.where(nan, np.copysign(np.nan, val), val)
+    elif fmt.specials == "fn":
+        val = np.where(mag == fmt.magnitude_mask, np.copysign(np.nan, val), val)
+    elif fmt.specials == "fnuz":
+        val = np.where(c == fmt.sign_mask, np.nan, val)
+    return val
+
+
+def _check_codes(codes: Any, fmt: Format) -> np.ndarray:
+    arr = np.asarray(codes)
+    if arr.dtype.kind not in "iu":
+        raise BitprismError(
+            f"codes must be integers (bit patterns of {fmt.name}); got dtype {arr.dtype}. "
+            "To cast values, use encode()"
+        )
+    if arr.size:
+        lo, hi = int(arr.min()), int(arr.max())
+        if lo < 0 or hi >= 1 << fmt.bits:
+            bad = lo if lo < 0 else hi
+            raise BitprismError(
+                f"code {bad!r} is outside 0..{(1 << fmt.bits) - 1:#x}, the {fmt.bits}-bit codes "
+                f"of {fmt.name}"
+            )
+    return arr
+
+
+def decode(codes: Any, fmt: FormatLike) -> Any:
+    """Bit patterns -> values as float64 (exact for every format but float64, which is itself).
+
+    A Python int gives a Python float; arrays give float64 arrays of the same shape.
+    """
+    f = get_format(fmt)
+    if is_scalar_input(codes):
+        if isinstance(codes, (bool, np.bool_)) or not isinstance(codes, (int, np.integer)):
+            raise BitprismError(f"a code must be an integer bit pattern of {f.name}, got {codes!r}")
+        return float(decode_exact(int(codes), f))
+    arr = _check_codes(codes, f)
+    if f.bits <= 16:
+        return value_table(f)[arr.astype(np.intp, copy=False)]
+    if f.bits == 64 and f.significand_bits == 52 and f.emin == -1022 and f.specials == "ieee":
+        return arr.astype(np.uint64).view(np.float64).copy()
+    if f.bits == 32 and f.significand_bits == 23 and f.emin == -126 and f.specials == "ieee":
+        return arr.astype(np.uint32).view(np.float32).astype(np.float64)
+    return _decode_arith(arr, f)
+
+
+def cast(
+    x: Any,
+    fmt: FormatLike,
+    rounding: Rounding = "roundTiesToEven",
+    overflow: Overflow = "standard",
+    subnormals: Subnormals = "keep",
+    seed: int | None = None,
+) -> Any:
+    """``decode(encode(x, ...))``: the value ``x`` takes in ``fmt``, as float64."""
+    f = get_format(fmt)
+    return decode(encode(x, f, rounding, overflow, subnormals, seed), f)
+
+
+def exact_of_code(code: int, fmt: FormatLike) -> ExactValue:
+    """The exact value of one code (kept here so UI layers need one import)."""
+    return decode_exact(int(code), get_format(fmt))
