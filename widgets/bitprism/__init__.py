@@ -14,29 +14,40 @@ from .formats import FORMATS, Format, get_format
 from .numerics.codes import cast, decode, encode
 from .numerics.exact import ExactValue
 from .numerics.inspect import CodeClass, Fields, fields, next_down, next_up, ulp, ulp_distance
+from .numerics.evaluate import Evaluation, evaluate
 from .numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
+from .numerics.parse import parse, parse_bits
+from .tensors.adapters import as_array
+from .tensors.files import open_tensor, open_tensors
 
 __all__ = [
-    "FORMATS",
-    "OVERFLOW_MODES",
-    "ROUNDING_MODES",
-    "SUBNORMAL_MODES",
     "BitprismError",
     "CastOptions",
     "CodeClass",
+    "Evaluation",
     "ExactValue",
+    "FORMATS",
     "Fields",
     "Format",
+    "OVERFLOW_MODES",
     "ParseError",
+    "ROUNDING_MODES",
+    "SUBNORMAL_MODES",
     "UnsupportedInputError",
     "__version__",
+    "as_array",
     "cast",
     "decode",
     "encode",
+    "evaluate",
     "fields",
     "get_format",
     "next_down",
     "next_up",
+    "open_tensor",
+    "open_tensors",
+    "parse",
+    "parse_bits",
     "ulp",
     "ulp_distance",
 ]

@@ -459,10 +459,14 @@ def get_format(spec: FormatLike) -> Format:
             f"unknown format {spec!r}{hint} Known formats: {', '.join(FORMATS)} "
             "(or a Format(...) of your own)"
         )
-    if isinstance(spec, (np.dtype, type)) or hasattr(spec, "dtype"):
-        fmt = _by_dtype(getattr(spec, "dtype", spec))
-        if fmt is not None:
-            return fmt
+    if isinstance(spec, (np.dtype, type)):
+        fmt = _by_dtype(spec)
+    elif hasattr(spec, "dtype"):  # an array or numpy scalar: its dtype
+        fmt = _by_dtype(spec.dtype)
+    else:
+        fmt = None
+    if fmt is not None:
+        return fmt
     raise BitprismError(
         f"format must be a name, a numpy/ml_dtypes float dtype or a Format; got {spec!r}"
     )

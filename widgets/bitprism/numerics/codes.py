@@ -15,7 +15,7 @@ import numpy as np
 from ..errors import BitprismError, UnsupportedInputError
 from ..formats import Format, FormatLike, get_format
 from .exact import ExactValue, as_exact
-from .kernel import CHUNK, SOURCE32, SOURCE64, encode_bits, source_for
+from .kernel import CHUNK, SOURCE32, encode_bits, encode_table, source_for, table_eligible
 from .options import CastOptions, Overflow, Rounding, Subnormals
 from .scalar import decode_exact, encode_exact
 
@@ -128,6 +128,13 @@ def _encode_array(
     if fmt.dtype is not None and arr.dtype == fmt.dtype and unchanged:
         np.copyto(flat_out, flat_in.view(fmt.code_dtype))
         return out  # already in this format: the codes are the bits
+    if table_eligible(fmt, carrier, options):
+        for start in range(0, flat_in.size, _BLOCK):
+            block = flat_in[start : start + _BLOCK]
+            if block.dtype != np.float32:
+                block = block.astype(np.float32)
+            encode_table(block.view(np.uint32), fmt, options, flat_out[start : start + _BLOCK], progress)
+        return out
     if arr.dtype == kernel_dtype:
         bits = flat_in.view(src.uint)
         encode_bits(bits, src, fmt, options, flat_out, rng, progress)

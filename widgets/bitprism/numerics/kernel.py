@@ -39,6 +39,7 @@ class _Source:
     """The IEEE source encoding the kernel reads: float32 or float64 bit patterns."""
 
     uint: type
+    float: type
     width: int
     t: int
     bias: int
@@ -51,9 +52,13 @@ class _Source:
     def inf_bits(self) -> int:
         return ((1 << (self.width - 1 - self.t)) - 1) << self.t
 
+    @property
+    def exponent_bits(self) -> int:
+        return self.width - 1 - self.t
 
-SOURCE32 = _Source(np.uint32, 32, 23, 127)
-SOURCE64 = _Source(np.uint64, 64, 52, 1023)
+
+SOURCE32 = _Source(np.uint32, np.float32, 32, 23, 127)
+SOURCE64 = _Source(np.uint64, np.float64, 64, 52, 1023)
 
 
 def source_for(fmt: Format, dtype: np.dtype) -> _Source:
@@ -75,12 +80,16 @@ class _Plan:
 
     src: _Source
     fmt: Format
+    options: CastOptions
     mode: str
     d: int  # t_src - t_dst
-    k_add: int  # rounding increment minus the re-bias, modulo 2^width (normal path)
-    low_bits: int  # source patterns below this have results below the target's emin
+    k_add: int  # rounding increment minus the re-bias (and the blend offset), mod 2^width
+    low_bits: int  # source patterns below this: result under the target's emin, or source subnormal
     clamp: int  # largest magnitude code after the overflow clamp
-    sign_shift: int  # source sign bit -> target sign bit
+    same_range: bool  # same exponent field and bias (bfloat16/tf32 from float32): sign rides along
+    blend: bool  # results below emin come from the float-add trick, blended in without gathers
+    magic: float  # 2^(emin - t + t_src): a source float whose ULP is the target's subnormal step
+    magic_bits: int
 
 
 @lru_cache(maxsize=256)
@@ -99,8 +108,18 @@ def _plan(src: _Source, fmt: Format, options: CastOptions) -> _Plan:
         inc = 1 << d >> 1
     else:
         inc = 0  # directed and stochastic increments are per element
-    k_add = (inc - rebias) % (1 << src.width)
-    # below this pattern the result is under the target's emin, or the source is subnormal
+    same_range = (
+        fmt.exponent_bits == src.exponent_bits
+        and fmt.bias == src.bias
+        and fmt.specials == "ieee"
+        and fmt.signed
+        and mode in ("roundTiesToEven", "roundTiesToAway", "roundTowardZero")
+        and options.overflow == "standard"
+        and options.subnormals == "keep"
+    )
+    blend = fmt.has_zero and mode != "stochastic" and not same_range
+    offset = ((1 << t) << d) if blend else 0
+    k_add = (inc - rebias - offset) % (1 << src.width)
     low_bits = max(fmt.emin + src.bias, 1) << src.t
     if options.overflow == "saturate" or not fmt.has_nan and not fmt.has_inf:
         clamp = fmt.max_code
@@ -108,7 +127,12 @@ def _plan(src: _Source, fmt: Format, options: CastOptions) -> _Plan:
         clamp = fmt.max_code + 1  # Inf, or the NaN that takes its place, sits right above max
     else:
         clamp = fmt.max_code
-    return _Plan(src, fmt, mode, d, k_add, low_bits, clamp, src.width - fmt.bits)
+    magic = src.float(2.0 ** (fmt.emin - t + src.t))
+    magic_bits = int(np.array(magic, src.float).view(src.uint))
+    return _Plan(
+        src, fmt, options, mode, d, k_add, low_bits, clamp, same_range, blend, float(magic),
+        magic_bits,
+    )
 
 
 class _Scratch:
@@ -121,50 +145,99 @@ class _Scratch:
 
 
 def _random_bits(rng: np.random.Generator, n: int, uint: type) -> np.ndarray:
-    return rng.integers(0, np.iinfo(uint).max, size=n, dtype=uint, endpoint=True)
+    """n uniform random words straight from the bit generator (every bit independent)."""
+    words = (n * np.dtype(uint).itemsize + 7) // 8
+    return rng.bit_generator.random_raw(words).view(uint)[:n]
 
 
-def _normal_chunk(
+def _sign_of(bits: np.ndarray, src: _Source) -> np.ndarray:
+    return np.right_shift(bits, src.uint(src.width - 1))
+
+
+def _chunk_codes(
     plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray, rng
-) -> None:
-    """Codes (with sign) for every element as if its result were normal; leaves |bits| in a."""
-    src, fmt = plan.src, plan.fmt
-    np.bitwise_and(bits, src.uint(src.abs_mask), out=a)
-    d = src.uint(plan.d)
-    mode = plan.mode
-    if plan.d == 0:  # as many significand bits as the source: the normal path is exact
-        np.copyto(b, a)
-    elif mode == "roundTiesToEven":
-        np.right_shift(a, d, out=b)
-        np.bitwise_and(b, src.uint(1), out=b)
-        np.add(b, a, out=b)
-    elif mode in ("roundTowardPositive", "roundTowardNegative"):
-        # magnitude rounds up (by 2^d - 1 before truncation) for one sign only
-        np.right_shift(bits, src.uint(src.width - 1), out=b)
-        if mode == "roundTowardPositive":
-            np.bitwise_xor(b, src.uint(1), out=b)
-        np.multiply(b, src.uint((1 << plan.d) - 1), out=b)
-        np.add(b, a, out=b)
-    elif mode == "stochastic":
-        r = _random_bits(rng, a.size, src.uint)
-        np.bitwise_and(r, src.uint((1 << plan.d) - 1), out=b)
-        np.add(b, a, out=b)
+) -> np.ndarray:
+    """Codes for one chunk in ``c``; leaves |bits| in ``a``. Elements below ``low_bits`` are
+    exact only when ``plan.blend`` or ``plan.same_range``; Inf/NaN inputs are not final."""
+    src, fmt, mode = plan.src, plan.fmt, plan.mode
+    u = src.uint
+    np.bitwise_and(bits, u(src.abs_mask), out=a)
+    if plan.same_range:
+        x = bits  # same exponent field: the sign bit rides along untouched
+    elif plan.blend:
+        x = np.maximum(a, u(plan.low_bits), out=b)  # low elements get the min-normal code here
     else:
-        np.copyto(b, a)
-    np.add(b, src.uint(plan.k_add), out=b)
-    np.right_shift(b, d, out=b)
-    np.minimum(b, src.uint(plan.clamp), out=b)
+        x = a
+    d = u(plan.d)
+    if plan.d == 0:
+        np.copyto(c, x)
+    elif mode == "roundTiesToEven":
+        np.right_shift(x, d, out=c)
+        np.bitwise_and(c, u(1), out=c)
+        np.add(c, x, out=c)
+    elif mode in ("roundTowardPositive", "roundTowardNegative"):
+        # the magnitude rounds up (by 2^d - 1 before truncation) for one sign only
+        np.right_shift(bits, u(src.width - 1), out=c)
+        if mode == "roundTowardPositive":
+            np.bitwise_xor(c, u(1), out=c)
+        np.multiply(c, u((1 << plan.d) - 1), out=c)
+        np.add(c, x, out=c)
+    elif mode == "stochastic":
+        r = _random_bits(rng, a.size, u)
+        np.bitwise_and(r, u((1 << plan.d) - 1), out=c)
+        np.add(c, x, out=c)
+    else:
+        np.copyto(c, x)
+    np.add(c, u(plan.k_add), out=c)
+    np.right_shift(c, d, out=c)
+    if plan.same_range:
+        return c
+    if plan.blend:
+        _blend_low(plan, bits, a, b)
+        np.add(c, b, out=c)
+    np.minimum(c, u(plan.clamp), out=c)
     if plan.clamp > fmt.max_code and mode in ("roundTowardPositive", "roundTowardNegative"):
         # the side rounding toward zero overflows to max, not to Inf/NaN
-        np.right_shift(bits, src.uint(src.width - 1), out=c)
+        np.right_shift(bits, u(src.width - 1), out=b)
         if mode == "roundTowardNegative":
-            np.bitwise_xor(c, src.uint(1), out=c)
-        np.multiply(c, np.greater(b, src.uint(fmt.max_code)), out=c, casting="unsafe")
-        np.subtract(b, c, out=b)
+            np.bitwise_xor(b, u(1), out=b)
+        np.multiply(b, np.greater(c, u(fmt.max_code)), out=b, casting="unsafe")
+        np.subtract(c, b, out=c)
     if fmt.signed:
-        np.right_shift(bits, src.uint(src.width - 1), out=c)
-        np.left_shift(c, src.uint(fmt.bits - 1), out=c)
-        np.bitwise_or(b, c, out=b)
+        np.right_shift(bits, u(src.width - 1), out=b)
+        if not fmt.has_negative_zero:  # no -0: a zero result takes no sign
+            np.bitwise_and(b, np.minimum(c, u(1)), out=b)
+        np.left_shift(b, u(fmt.bits - 1), out=b)
+        np.bitwise_or(c, b, out=c)
+    return c
+
+
+def _blend_low(plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray) -> None:
+    """Subnormal-range codes for every element into ``b``, saturating at the min-normal code
+    (so that adding ``b`` to the normal path, which carries the matching offset, blends the
+    two without a select). Adding M = 2^(emin - t + t_src) to |x| makes the hardware round
+    |x| to a multiple of the target's subnormal step (roundTiesToEven); the other directions
+    correct that by one step from the exact remainder r - |x|, which is computed exactly."""
+    src, fmt, mode = plan.src, plan.fmt, plan.mode
+    u = src.uint
+    fa, fb = a.view(src.float), b.view(src.float)
+    np.add(fa, src.float(plan.magic), out=fb)
+    if mode != "roundTiesToEven":
+        r = np.subtract(fb, src.float(plan.magic))  # the rounded value, exact
+        if mode == "roundTiesToAway":
+            step = np.subtract(fa, r) == src.float(plan.magic) * src.float(2.0 ** -(src.t + 1))
+            np.add(b, step, out=b, casting="unsafe")
+        else:
+            np.subtract(b, np.greater(r, fa), out=b, casting="unsafe")  # now rounded down
+            if mode != "roundTowardZero":
+                up = np.not_equal(r, fa)
+                negative = _sign_of(bits, src).astype(bool)
+                up &= negative if mode == "roundTowardNegative" else ~negative
+                np.add(b, up, out=b, casting="unsafe")
+    np.subtract(b, u(plan.magic_bits), out=b)
+    np.minimum(b, u(1 << fmt.significand_bits), out=b)
+    if plan.options.subnormals == "flush":
+        np.multiply(b, np.right_shift(b, u(fmt.significand_bits)), out=b)
 
 
 def _low_codes(plan: _Plan, bits: np.ndarray, options: CastOptions, rng) -> np.ndarray:
@@ -264,21 +337,77 @@ def encode_bits(
         chunk = bits[start : start + CHUNK]
         k = chunk.size
         a, b, c = scratch.a[:k], scratch.b[:k], scratch.c[:k]
-        _normal_chunk(plan, chunk, a, b, c, rng)
-        if a.min() < low_bits:
+        c = _chunk_codes(plan, chunk, a, b, c, rng)
+        if not (plan.blend or plan.same_range) and a.min() < low_bits:
             idx = np.flatnonzero(a < low_bits)
-            b[idx] = _low_codes(plan, chunk[idx], options, rng)
+            c[idx] = _low_codes(plan, chunk[idx], options, rng)
         if a.max() >= inf_bits:
             idx = np.flatnonzero(a >= inf_bits)
-            b[idx] = _special_codes(plan, chunk[idx], options)
+            c[idx] = _special_codes(plan, chunk[idx], options)
         if not fmt.signed:
             negative = chunk > src.uint(src.abs_mask)
             if negative.any():
                 idx = np.flatnonzero(negative & (a != 0) & (a < inf_bits))
-                b[idx] = nan_input_code(fmt, False) if fmt.has_nan else 0
+                c[idx] = nan_input_code(fmt, False) if fmt.has_nan else 0
                 if not fmt.has_zero:
                     idx = np.flatnonzero(negative & (a == 0))
-                    b[idx] = nan_input_code(fmt, False) if fmt.has_nan else 0
-        np.copyto(out[start : start + k], b, casting="unsafe")
+                    c[idx] = nan_input_code(fmt, False) if fmt.has_nan else 0
+        np.copyto(out[start : start + k], c, casting="unsafe")
+        if progress is not None:
+            progress(k)
+
+
+def table_eligible(fmt: Format, carrier: np.dtype, options: CastOptions) -> bool:
+    """Whether float32 data can be cast through a 2^17-entry table (formats of <= 8 bits with
+    <= 6 trailing bits): there the rounding point lies in the top 16 bits of the float32
+    pattern, so the low 16 bits only matter through being zero or not (the sticky bit)."""
+    return (
+        carrier == np.float32
+        and fmt.bits <= 8
+        and fmt.significand_bits <= 6
+        and options.rounding != "stochastic"
+    )
+
+
+@lru_cache(maxsize=64)
+def _table(fmt: Format, options: CastOptions) -> np.ndarray:
+    """Code of every (top 16 bits, low 16 bits nonzero?) float32 pattern pair, by the kernel."""
+    hi = np.arange(1 << 16, dtype=np.uint32) << np.uint32(16)
+    patterns = np.empty(1 << 17, np.uint32)
+    patterns[0::2] = hi
+    patterns[1::2] = hi | np.uint32(1)
+    table = np.empty(1 << 17, fmt.code_dtype)
+    src = source_for(fmt, np.dtype(np.float32))
+    if src is SOURCE32:
+        encode_bits(patterns, src, fmt, options, table)
+    else:
+        wide = patterns.view(np.float32).astype(np.float64).view(np.uint64)
+        encode_bits(wide, src, fmt, options, table)
+    table.setflags(write=False)
+    return table
+
+
+def encode_table(
+    bits: np.ndarray,
+    fmt: Format,
+    options: CastOptions,
+    out: np.ndarray,
+    progress=None,
+) -> None:
+    """Cast float32 patterns ``bits`` (1-D uint32) through the table: one gather per element."""
+    table = _table(fmt, options)
+    n = bits.size
+    idx = np.empty(min(CHUNK, max(n, 1)), np.uint32)
+    low = np.empty_like(idx)
+    for start in range(0, n, CHUNK):
+        chunk = bits[start : start + CHUNK]
+        k = chunk.size
+        i, lo = idx[:k], low[:k]
+        np.right_shift(chunk, np.uint32(15), out=i)
+        np.bitwise_and(i, np.uint32(0x1FFFE), out=i)
+        np.bitwise_and(chunk, np.uint32(0xFFFF), out=lo)
+        np.minimum(lo, np.uint32(1), out=lo)
+        np.bitwise_or(i, lo, out=i)
+        np.take(table, i, out=out[start : start + k])
         if progress is not None:
             progress(k)
