@@ -14,6 +14,8 @@ from .formats import FORMATS, Format, get_format
 from .numerics.codes import cast, decode, encode
 from .numerics.exact import ExactValue
 from .numerics.inspect import CodeClass, Fields, fields, next_down, next_up, ulp, ulp_distance
+from .numerics.compare import Comparison, FormatRow, compare
+from .numerics.decimal_text import exact_decimal, shortest_decimal
 from .numerics.evaluate import Evaluation, evaluate
 from .numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
 from .numerics.parse import parse, parse_bits
@@ -24,11 +26,13 @@ __all__ = [
     "BitprismError",
     "CastOptions",
     "CodeClass",
+    "Comparison",
     "Evaluation",
     "ExactValue",
     "FORMATS",
     "Fields",
     "Format",
+    "FormatRow",
     "OVERFLOW_MODES",
     "ParseError",
     "ROUNDING_MODES",
@@ -37,9 +41,11 @@ __all__ = [
     "__version__",
     "as_array",
     "cast",
+    "compare",
     "decode",
     "encode",
     "evaluate",
+    "exact_decimal",
     "fields",
     "get_format",
     "next_down",
@@ -48,13 +54,14 @@ __all__ = [
     "open_tensors",
     "parse",
     "parse_bits",
+    "shortest_decimal",
     "ulp",
     "ulp_distance",
 ]
 
 # Names loaded on first access, so that `import bitprism` stays free of UI and plotting
 # libraries and of modules still being imported lazily by their own layer.
-_LAZY: dict[str, str] = {}
+_LAZY: dict[str, str] = {"Prism": ".ui.prism"}
 
 
 def __getattr__(name: str) -> Any:

@@ -1,0 +1,324 @@
+"""compare(), shortest/exact decimal text, and the text/HTML renderings of a Comparison.
+
+Reference values: /work/shared/reference-values.md, cited per check as "ref §n" (the §9
+cross-format error tables and the §1.4 worked encodings are "from library": the codes are
+recomputed here with ml_dtypes / numpy and the errors with fractions).
+"""
+
+from __future__ import annotations
+
+import random
+import subprocess
+import sys
+from decimal import Decimal, localcontext
+from fractions import Fraction
+
+import ml_dtypes
+import numpy as np
+import pytest
+
+import oracle
+from bitprism.formats import FORMATS, Format, get_format
+from bitprism.numerics.compare import Comparison, compare, neighbour_codes, scalar_fields
+from bitprism.numerics.decimal_text import (
+    abbreviate_decimal,
+    exact_decimal,
+    exact_text,
+    shortest_decimal,
+)
+from bitprism.numerics.exact import ExactValue
+from bitprism.numerics.inspect import CodeClass, fields
+from bitprism.numerics.parse import parse
+
+ML_FORMATS = ("float32", "float16", "bfloat16", "float8_e4m3fn", "float8_e5m2",
+              "float6_e2m3fn", "float6_e3m2fn", "float4_e2m1fn")
+
+
+def _library_code(x: float, name: str) -> int:
+    """The code numpy / ml_dtypes give for float64 ``x`` (round to nearest even)."""
+    fmt = FORMATS[name]
+    arr = np.array([x], dtype=np.float64).astype(fmt.dtype)
+    if fmt.bits < 8:
+        return int(arr.view(np.uint8)[0])
+    return int(arr.view(fmt.code_dtype)[0])
+
+
+def _library_ulp(value: Fraction, name: str) -> Fraction:
+    """ULP at a value from ml_dtypes.finfo (Handbook definition, ref §0 notation)."""
+    fi = ml_dtypes.finfo(FORMATS[name].dtype)
+    e = max(int(np.floor(np.log2(float(abs(value))))) if value else fi.minexp, fi.minexp)
+    return Fraction(2) ** (e - int(fi.nmant))
+
+
+# ref §9 "x = 1/10" and "x = 1/3" tables: error in ulps (ULP at the rounded value)
+TABLE_1_10 = {
+    "float64": Fraction(2, 5), "float32": Fraction(1, 5), "float16": Fraction(-2, 5),
+    "bfloat16": Fraction(1, 5), "float8_e4m3fn": Fraction(1, 5), "float8_e5m2": Fraction(-2, 5),
+    "float6_e2m3fn": Fraction(1, 5), "float6_e3m2fn": Fraction(2, 5),
+    "float4_e2m1fn": Fraction(-1, 5),
+}
+TABLE_1_3 = {
+    "float64": Fraction(-1, 3), "float32": Fraction(1, 3), "float16": Fraction(-1, 3),
+    "bfloat16": Fraction(1, 3), "float8_e4m3fn": Fraction(1, 3), "float8_e5m2": Fraction(-1, 3),
+    "float6_e2m3fn": Fraction(1, 3), "float6_e3m2fn": Fraction(-1, 3),
+    "float4_e2m1fn": Fraction(1, 3),
+}
+
+
+@pytest.mark.parametrize("text,x,table", [("1/10", Fraction(1, 10), TABLE_1_10),
+                                           ("1/3", Fraction(1, 3), TABLE_1_3)], ids=["1/10", "1/3"])
+def test_cross_format_error_tables(text: str, x: Fraction, table: dict) -> None:
+    c = compare(text, formats=tuple(table))
+    for row in c.rows:
+        name = row.format.name
+        if name != "float64":  # library code (float64 -> format is exact-input here: no double
+            assert row.code == _library_code(float(x), name), name  # rounding for 1/10, 1/3)
+        stored = row.stored.value
+        assert row.abs_error == stored - x
+        assert row.rel_error == (stored - x) / x
+        assert row.ulp_error == table[name], name  # ref §9
+        if name != "float64":
+            assert row.ulp == _library_ulp(stored, name) or stored == 0
+    if text == "1/10":
+        assert c.row("float4_e2m1fn").underflowed  # ref §9: FP4 1/10 -> 0, -0.2 ulp (ulp 1/2)  # ref §1.4: float32 RNE(1/10) has relative error exactly 2^-26
+        assert c.row("float32").rel_error == Fraction(2) ** -26
+
+
+def test_pi_row_against_float64_pi() -> None:
+    # ref §9 "x = π (float64 0x400921FB54442D18)": reference is float64 π, ulps to 6 digits
+    c = compare(np.pi, formats=("float32", "float16", "bfloat16", "float8_e4m3fn", "float8_e5m2"))
+    expect = {"float32": 0.366678, "float16": -0.495439, "bfloat16": -0.061930,
+              "float8_e4m3fn": 0.433629, "float8_e5m2": -0.283185}
+    for row in c.rows:
+        assert row.code == _library_code(np.pi, row.format.name)
+        assert float(row.ulp_error) == pytest.approx(expect[row.format.name], abs=1e-6)
+    assert c.input.value == Fraction(np.pi)
+
+
+def test_worked_encodings_section_1_4() -> None:
+    # ref §1.4 binary32 0x3DCCCCCD = RNE(1/10), exact 0.100000001490116119384765625
+    r = compare("0.1", formats=("float32",)).rows[0]
+    assert r.code == 0x3DCCCCCD and r.exact == "0.100000001490116119384765625"
+    # ref §1.4 binary16 0x0001 = 2^-24, exact decimal 0.000000059604644775390625
+    r = compare("2**-24", formats=("float16",)).rows[0]
+    assert r.code == 0x0001 and Decimal(r.exact) == Decimal("0.000000059604644775390625")
+    assert r.subnormal and r.fields.kind == CodeClass.SUBNORMAL
+    # ref §1.4 binary16 0x7BFF = 65504; its ULP is 32 (not np.spacing's inf)
+    r = compare("65504", formats=("float16",)).rows[0]
+    assert r.code == 0x7BFF and r.ulp == 32 and r.next_up is not None and r.next_up.code == 0x7C00
+    # ref §1.4 integer gaps: float16(2049) -> 2048 (tie to even), float16(2051) -> 2052
+    assert compare("2049", formats=("float16",)).rows[0].shortest == "2048.0"
+    assert compare("2051", formats=("float16",)).rows[0].shortest == "2052.0"
+
+
+def test_double_rounding_via_float32() -> None:
+    # ref §8.1: 1 + 2^-8 + 2^-30 -> bf16 directly 1.0078125, through float32 first 1.0
+    direct = compare("1 + 2**-8 + 2**-30", formats=("bfloat16",))
+    via = compare("1 + 2**-8 + 2**-30", formats=("bfloat16",), via="float32")
+    assert direct.rows[0].stored.value == Fraction(129, 128)
+    assert via.rows[0].stored.value == 1
+    assert via.via is FORMATS["float32"] and via.source.value == 1 + Fraction(1, 256)
+    assert via.rows[0].abs_error == -(Fraction(1, 256) + Fraction(1, 2**30))  # vs exact input
+
+
+def test_flags() -> None:
+    c = compare("nan", formats=("float4_e2m1fn", "float16"))
+    fp4, f16 = c.rows
+    assert fp4.stored.is_zero and fp4.not_representable and fp4.abs_error is None
+    assert f16.stored.is_nan and not f16.not_representable and f16.ulp is None
+    c = compare("1e10", formats=("float16", "float8_e4m3fn"), overflow="saturate")
+    assert all(r.overflowed for r in c.rows)
+    assert c.row("float16").code == 0x7BFF
+    c = compare("1e-10", formats=("float16",))
+    assert c.rows[0].underflowed and c.rows[0].stored.is_zero and c.rows[0].ulp_error is not None
+    c = compare("65519", formats=("float16",))  # below max + ulp/2: rounds to 65504, no overflow
+    assert not c.rows[0].overflowed
+    c = compare("65520", formats=("float16",))  # the tie rounds up past max: IEEE overflow
+    assert c.rows[0].overflowed and c.rows[0].stored.is_inf
+    c = compare("-inf", formats=("float8_e4m3fn",))
+    assert c.rows[0].stored.is_nan and c.rows[0].not_representable
+
+
+def test_rounding_options_and_stochastic_seed() -> None:
+    rz = compare("0.1", formats=("bfloat16",), rounding="roundTowardZero").rows[0]
+    assert rz.code == 0x3DCC  # truncation of 0x3DCCCCCD (ref §0: truncation = roundTowardZero)
+    a = compare("0.1", formats=("float8_e4m3fn", "float16"), rounding="stochastic", seed=7)
+    b = compare("0.1", formats=("float16",), rounding="stochastic", seed=7)
+    assert a.row("float16").code == b.row("float16").code  # independent of the other formats
+
+
+@pytest.mark.parametrize("name", sorted(FORMATS), ids=str)
+def test_neighbours_and_fields_consistent(name: str) -> None:
+    fmt = FORMATS[name]
+    rng = random.Random(name)
+    codes = range(1 << fmt.bits) if fmt.bits <= 8 else [rng.getrandbits(fmt.bits) for _ in range(300)]
+    for code in codes:
+        assert scalar_fields(code, fmt) == fields(code, fmt)
+        down, up = neighbour_codes(code, fmt)
+        if fmt.classify(code) == "nan":
+            assert down is None and up is None
+            continue
+        v = fmt.code_value(code) if fmt.classify(code) == "finite" else None
+        for n, bigger in ((down, False), (up, True)):
+            if n is None or v is None or fmt.classify(n) != "finite":
+                continue
+            w = fmt.code_value(n)
+            assert (w > v) if bigger else (w < v)
+
+
+def test_neighbours_match_numpy_nextafter_float16() -> None:
+    for code in range(0, 1 << 16, 7):
+        x = np.uint16(code).view(np.float16)
+        if not np.isfinite(x):
+            continue
+        down, up = neighbour_codes(code, FORMATS["float16"])
+        if up is not None:
+            assert np.uint16(up).view(np.float16) == np.nextafter(x, np.float16(np.inf))
+        if down is not None:
+            assert np.uint16(down).view(np.float16) == np.nextafter(x, np.float16(-np.inf))
+
+
+# ----- shortest and exact decimal ---------------------------------------------------------------
+def _digits(text: str) -> int:
+    return len(text.lstrip("-").split("e")[0].replace(".", "").strip("0"))
+
+
+def test_shortest_float16_matches_numpy_everywhere() -> None:
+    for code in range(1 << 16):
+        x = np.uint16(code).view(np.float16)
+        if not np.isfinite(x):
+            continue
+        mine = shortest_decimal(code, "float16")
+        ref = np.format_float_positional(x, unique=True)
+        assert Decimal(mine) == Decimal(ref) and _digits(mine) == _digits(ref), (code, mine, ref)
+
+
+def test_shortest_float32_matches_numpy() -> None:
+    rng = random.Random(32)
+    codes = [rng.getrandbits(32) for _ in range(3000)] + [1, 0x7F7FFFFF, 0x00800000, 0x3DCCCCCD]
+    for code in codes:
+        x = np.uint32(code).view(np.float32)
+        if not np.isfinite(x):
+            continue
+        mine = shortest_decimal(code, "float32")
+        ref = np.format_float_positional(x, unique=True)
+        assert Decimal(mine) == Decimal(ref), (hex(code), mine, ref)
+
+
+def test_shortest_float64_equals_repr() -> None:
+    rng = random.Random(64)
+    codes = [rng.getrandbits(64) for _ in range(2000)] + [1, 0x3FB999999999999A, 0x7FEFFFFFFFFFFFFF]
+    for code in codes:
+        x = float(np.uint64(code).view(np.float64))
+        if x != x or x in (float("inf"), float("-inf")):
+            continue
+        assert shortest_decimal(code, "float64") == repr(x)
+
+
+@pytest.mark.parametrize("name", ["bfloat16", "float8_e4m3fn", "float8_e8m0fnu", "float4_e2m1fn"])
+def test_shortest_is_unique_and_minimal(name: str) -> None:
+    """Property check against the independent oracle: the text reads back to the code, and no
+    decimal with one digit fewer (either neighbour of the value on that grid) does."""
+    fmt = FORMATS[name]
+    layout = oracle.Layout.of(fmt)
+    step = 3 if fmt.bits == 16 else 1
+    for code in range(0, 1 << fmt.bits, step):
+        if fmt.classify(code) != "finite" or fmt.code_value(code) == 0:
+            continue
+        text = shortest_decimal(code, fmt)
+        value = Fraction(Decimal(text))
+        assert oracle.encode(value, layout) == code, (code, text)
+        n = _digits(text)
+        if n > 1:
+            exact = abs(fmt.code_value(code))
+            with localcontext() as ctx:
+                ctx.prec = 60
+                lead = Decimal(exact.numerator) / Decimal(exact.denominator)
+            shift = (n - 2) - lead.adjusted()
+            scaled = exact * Fraction(10) ** shift
+            lo = scaled.numerator // scaled.denominator
+            sign = -1 if code & fmt.sign_mask else 1
+            for m in (lo, lo + 1):
+                cand = sign * Fraction(m) / Fraction(10) ** shift
+                assert m == 0 or oracle.encode(cand, layout) != code, (code, text, cand)
+
+
+def test_exact_decimal() -> None:
+    # ref §1.4 binary32 0x00000001 = 2^-149, 105 significant digits
+    full = exact_decimal(Fraction(1, 2**149))
+    assert full.startswith("1.40129846432481707092372958328991613128026194187651577175706828")
+    assert full.endswith("e-45")
+    with localcontext() as ctx:
+        ctx.prec = 200
+        assert Decimal(full) == Decimal(1) / Decimal(2**149)
+    short = abbreviate_decimal(full, 12)
+    assert short == "1.40129846432…e-45 (105 digits)"
+    assert exact_decimal(Fraction(1, 2**149), max_digits=12) == short
+    assert exact_decimal(Fraction(819, 8192)) == "0.0999755859375"  # ref §1.4 0x2E66
+    assert exact_decimal(Fraction(-2)) == "-2.0"
+    assert exact_decimal(Fraction(1, 3)).endswith("…")
+
+
+@pytest.mark.parametrize("x", [Fraction(1, 3), Fraction(1, 10), np.float32(0.1), 2**-1074,
+                               -0.0, float("-inf"), 10**400, Fraction(1, 2**200000)])
+def test_exact_text_parses_back(x: object) -> None:
+    from bitprism.numerics.exact import as_exact
+
+    ev = as_exact(x) if not isinstance(x, float) or x == x else ExactValue.nan()
+    assert parse(exact_text(ev)) == ev
+
+
+# ----- renderings -------------------------------------------------------------------------------
+def test_text_table_exact_at_fixed_width() -> None:
+    c = compare("0.1", formats=("float8_e4m3fn", "float4_e2m1fn"))
+    expected = "\n".join([
+        "input 0.1  = 0.1",
+        "roundTiesToEven, overflow standard, subnormals keep",
+        "format         class      value   ulp err      rel err  bits (sign exponent significand)  events",
+        "float8_e4m3fn  normal     0.1        +0.2     +0.01562  0 0011 101",
+        "float4_e2m1fn  zero       0.0        -0.2           -1  0 00 0                            underflow to zero",
+    ])
+    assert c.to_text(width=110) == expected
+    assert c.to_text(width=40).splitlines()[2] == "format         class      value   ulp e…"
+    assert all(len(line) <= 40 for line in c.to_text(width=40).splitlines())
+
+
+def test_mimebundle_and_html_escaping() -> None:
+    evil = Format("<b>&evil</b>", 4, 3, specials="fn")
+    c = compare("0.1", formats=(evil, "float16"))
+    bundle = c._repr_mimebundle_()
+    assert set(bundle) == {"text/plain", "text/html"}
+    html = bundle["text/html"]
+    assert "<b>&evil</b>" not in html and "&lt;b&gt;&amp;evil&lt;/b&gt;" in html
+    assert "<script" not in html and "http" not in html and "<style" not in html
+    assert html.count('class="bitprism-band"') == 2
+    assert "<b>&evil</b>" in bundle["text/plain"]
+
+
+def test_html_size_for_eight_formats_with_float64() -> None:
+    names = ("float64", "float32", "tf32", "bfloat16", "float16", "float8_e4m3fn", "float8_e5m2",
+             "float4_e2m1fn")
+    for value in ("0.1", "1/3", "2**-1074", "1e300", "nan", "-65504.5"):
+        html = compare(value, formats=names).to_html()
+        assert len(html.encode()) < 64 * 1024, value
+
+
+def test_aligned_view_marks_dropped_bits() -> None:
+    c = compare("1 + 2**-8 + 2**-30", formats=("float32", "bfloat16"))
+    html = c.to_html(aligned=True)
+    assert "weight-aligned view" in html and "line-through" in html
+    assert "dropped by the cast" in html  # caption names the struck-through tiles in words
+
+
+def test_core_and_render_import_no_ui_libraries() -> None:
+    code = ("import sys, bitprism.numerics.compare, bitprism.render.compare_html, "
+            "bitprism.numerics.decimal_text; "
+            "bad = [m for m in ('ipywidgets', 'matplotlib', 'IPython') if m in sys.modules]; "
+            "print(bad); sys.exit(1 if bad else 0)")
+    subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_compare_accepts_numbers_and_names() -> None:
+    c = compare(np.float32(0.1), formats=["fp16"])
+    assert c.input.value == Fraction(np.float32(0.1).item()) and c.rows[0].format.name == "float16"
+    assert isinstance(c, Comparison) and get_format("bf16") not in [r.format for r in c.rows]

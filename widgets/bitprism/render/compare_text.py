@@ -1,0 +1,156 @@
+"""Plain text for a ``Comparison``: a fixed-width table, plus the field notes the HTML shares.
+
+Pure functions of the result object: no widgets, no I/O.
+"""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+from ..numerics.compare import Comparison, FormatRow
+from ..numerics.decimal_text import exact_decimal
+from ..numerics.inspect import CodeClass
+
+__all__ = [
+    "MINUS",
+    "class_label",
+    "comparison_text",
+    "event_labels",
+    "field_notes",
+    "format_error",
+    "format_number",
+    "grouped_bits",
+]
+
+MINUS = "\u2212"  # typographic minus for exponents and signs shown to people
+
+
+def format_number(q: Fraction | None, digits: int = 4, signed: bool = False) -> str:
+    """A short display of an exact value: ``+1.4901e-09``, ``-0.4``, ``n/a`` for None."""
+    if q is None:
+        return "n/a"
+    if q == 0:
+        return "0"
+    text = f"{float(q):+.{digits}g}" if signed else f"{float(q):.{digits}g}"
+    return text
+
+
+def format_error(q: Fraction | None) -> str:
+    """Errors are shown signed; a few-digit fraction (1/3, 2/5) stays exact."""
+    if q is None:
+        return "n/a"
+    if q == 0:
+        return "0"
+    if q.denominator <= 12:
+        whole = q.numerator / q.denominator
+        if q.denominator in (1, 2, 4, 5, 8, 10):
+            return f"{whole:+g}"
+        return f"{'+' if q > 0 else '-'}{abs(q.numerator)}/{q.denominator}"
+    return format_number(q, 4, signed=True)
+
+
+def grouped_bits(row: FormatRow, sep: str = " ") -> str:
+    """The code's bits as sign, exponent and trailing significand groups."""
+    bits = row.bits()
+    f = row.format
+    s = f.sign_bits
+    parts = [bits[:s], bits[s : s + f.exponent_bits], bits[s + f.exponent_bits :]]
+    return sep.join(p for p in parts if p)
+
+
+def class_label(row: FormatRow) -> str:
+    return CodeClass(row.fields.kind).label
+
+
+def event_labels(row: FormatRow) -> list[str]:
+    """What the cast did, in words (overflow, underflow to zero, subnormal, not representable)."""
+    out = []
+    if row.overflowed:
+        out.append("overflow")
+    if row.underflowed:
+        out.append("underflow to zero")
+    if row.not_representable:
+        out.append("not representable")
+    return out
+
+
+def field_notes(row: FormatRow) -> dict[str, str]:
+    """Integer value and meaning of each field: sign, exponent, significand."""
+    f = row.format
+    fl = row.fields
+    kind = CodeClass(fl.kind)
+    t = f.significand_bits
+    notes: dict[str, str] = {}
+    notes["sign"] = ("\u2212" if fl.sign else "+") if f.signed else "unsigned (no sign bit)"
+    e = int(fl.exponent)
+    top = kind in (CodeClass.INFINITE, CodeClass.QUIET_NAN, CodeClass.SIGNALING_NAN)
+    if top and f.specials == "ieee":
+        notes["exponent"] = f"E = {e}: all ones, reserved for Inf and NaN"
+    elif kind in (CodeClass.QUIET_NAN, CodeClass.SIGNALING_NAN):
+        notes["exponent"] = f"E = {e}: part of the NaN pattern"
+    elif kind in (CodeClass.ZERO, CodeClass.SUBNORMAL):
+        notes["exponent"] = f"E = 0: subnormal range, power {_pow(f.emin)} (1 {MINUS} bias)"
+    else:
+        notes["exponent"] = f"E = {e}: {e} {MINUS} {f.bias} = {_signed_int(e - f.bias)}"
+    sig = int(fl.significand)
+    if kind == CodeClass.INFINITE:
+        notes["significand"] = "T = 0: Inf"
+    elif kind in (CodeClass.QUIET_NAN, CodeClass.SIGNALING_NAN):
+        quiet = "quiet" if kind == CodeClass.QUIET_NAN else "signaling"
+        notes["significand"] = f"T = {sig:#x}: {quiet} NaN, payload {int(fl.payload):#x}"
+    else:
+        lead = 0 if kind in (CodeClass.ZERO, CodeClass.SUBNORMAL) else 1
+        frac = format(sig, f"0{t}b") if t else ""
+        m = Fraction((lead << t) | sig, 1 << t)
+        notes["significand"] = f"T = {sig}: {lead}.{frac or '0'}\u2082 = {exact_decimal(m)}"
+    return notes
+
+
+def _signed_int(n: int) -> str:
+    return f"{MINUS}{-n}" if n < 0 else str(n)
+
+
+def _pow(n: int) -> str:
+    return f"2^{_signed_int(n)}"
+
+
+def _cut(line: str, width: int) -> str:
+    return line if len(line) <= width else line[: width - 1] + "…"
+
+
+def comparison_text(c: Comparison, width: int = 120) -> str:
+    """A fixed-width table: one line per format, lines cut to ``width`` characters."""
+    opts = c.options
+    head = f"input {c.text}  = {_input_text(c)}"
+    setting = f"{opts.rounding}, overflow {opts.overflow}, subnormals {opts.subnormals}"
+    if opts.rounding == "stochastic":
+        setting += f", seed {opts.seed}"
+    if c.via is not None:
+        setting += f", via {c.via.name}"
+    lines = [_cut(head, width), _cut(setting, width)]
+    name_w = max(6, *(len(r.format.name) for r in c.rows))
+    bits_w = max(32, *(len(grouped_bits(r)) for r in c.rows))
+    value_w = max(5, *(len(r.shortest) for r in c.rows))
+    cols = (
+        f"{'format':<{name_w}}  {'class':<9}  {'value':<{value_w}}  {'ulp err':>8}  "
+        f"{'rel err':>11}  {'bits (sign exponent significand)':<{bits_w}}  events"
+    )
+    lines.append(_cut(cols.rstrip(), width))
+    for r in c.rows:
+        ev = ", ".join(event_labels(r))
+        line = (
+            f"{r.format.name:<{name_w}}  {class_label(r):<9}  {r.shortest:<{value_w}}  "
+            f"{format_error(r.ulp_error):>8}  {format_number(r.rel_error, 4, signed=True):>11}  "
+            f"{grouped_bits(r):<{bits_w}}  {ev}"
+        )
+        lines.append(_cut(line.rstrip(), width))
+    return "\n".join(lines)
+
+
+def _input_text(c: Comparison) -> str:
+    x = c.input
+    if not x.is_finite:
+        return str(x).replace("inf", "Inf").replace("nan", "NaN")
+    if x.clamped:
+        return str(x)
+    return exact_decimal(x.value, max_digits=24)

@@ -1,0 +1,1 @@
+"""ipywidgets composites: state in traits, computing in the core, markup from the render layer."""

@@ -1,0 +1,544 @@
+"""``Prism``: one value refracted into several formats side by side, live.
+
+State lives in traits; every reaction goes through one ``_refresh()``; all computing is done
+by ``numerics.compare`` and all markup by ``render.compare_html`` (the widget has no renderer of
+its own: its bands are ``HTML`` widgets holding that markup, plus standard buttons per bit).
+Standard ipywidgets only, no custom JavaScript. Errors in callbacks are shown in the message
+area, never raised into the notebook.
+"""
+
+from __future__ import annotations
+
+import functools
+from contextlib import contextmanager
+from typing import Any, Callable, Iterator
+
+import ipywidgets as W
+from traitlets import Any as AnyTrait
+from traitlets import Bool, Int, List, TraitError, Unicode, observe, validate
+
+from ..errors import BitprismError, ParseError
+from ..formats import FORMATS, Format, get_format
+from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare
+from ..numerics.decimal_text import exact_text
+from ..numerics.exact import ExactValue, as_exact
+from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
+from ..numerics.scalar import decode_exact
+from ..render.compare_html import (
+    aligned_html,
+    band_html,
+    evaluations_html,
+    header_html,
+)
+from ..render.palette import button_colors
+
+__all__ = ["Prism"]
+
+_VIA_CHOICES = (("direct", ""), ("through float32", "float32"))
+_FIELD_ROLES = ("sign", "exponent", "significand")
+
+
+def _message_for(exc: BaseException) -> str:
+    if isinstance(exc, ParseError):
+        return f"{exc.reason} (column {exc.column})"
+    return f"{type(exc).__name__}: {exc}"
+
+
+def _guarded(method: Callable[..., Any]) -> Callable[..., Any]:
+    """Run a callback; show any error in the message area instead of losing it."""
+
+    @functools.wraps(method)
+    def wrapper(self: "Prism", *args: Any, **kwargs: Any) -> Any:
+        try:
+            return method(self, *args, **kwargs)
+        except Exception as exc:  # shown to the person, who can act on it
+            self.message = _message_for(exc)
+            return None
+
+    return wrapper
+
+
+class _Band:
+    """The widgets of one format's band (rebuilt only when the format list changes)."""
+
+    def __init__(self, prism: "Prism", fmt: Format, index: int) -> None:
+        self.format = fmt
+        self.html = W.HTML()
+        self.bits: list[W.Button] = []
+        bit_layout = prism._bit_layout
+        children: list[W.Widget] = []
+        s, w, t = fmt.sign_bits, fmt.exponent_bits, fmt.significand_bits
+        roles = ["sign"] * s + ["exponent"] * w + ["significand"] * t
+        self.implicit = self._implicit(prism)
+        for pos, role in enumerate(roles):
+            if pos == s + w:
+                children.append(self.implicit)  # between exponent and trailing significand
+            bit_number = fmt.bits - 1 - pos  # weight of this bit in the code
+            b = W.Button(
+                description="0",
+                tooltip=f"{fmt.name} bit {bit_number}: {role} (click to flip)",
+                layout=bit_layout,
+                style=prism._bit_styles[role],
+            )
+            b.add_class("bitprism-bit")
+            b.add_class(f"bitprism-{role}")
+            b.on_click(functools.partial(prism._on_bit_click, index, bit_number))
+            self.bits.append(b)
+            children.append(b)
+        if t == 0:
+            children.append(self.implicit)
+        self.bit_row = W.HBox(children, layout=W.Layout(flex_flow="row wrap"))
+        self.down = self._button("next down", "the value below, in this format", prism, index, "down")
+        self.up = self._button("next up", "the value above, in this format", prism, index, "up")
+        self.largest = self._button("largest", "largest finite value", prism, index, "largest")
+        self.normal = self._button("min normal", "smallest normal value", prism, index, "normal")
+        self.subnormal = self._button(
+            "min subnormal", "smallest subnormal value", prism, index, "subnormal"
+        )
+        self.remove = self._button("remove", f"remove {fmt.name}", prism, index, "remove")
+        nav = W.HBox([self.down, self.up, self.largest, self.normal, self.subnormal, self.remove])
+        self.box = W.VBox([self.html, self.bit_row, nav])
+        self.box.add_class("bitprism-band")
+
+    @staticmethod
+    def _implicit(prism: "Prism") -> W.Button:
+        b = W.Button(
+            description="1",
+            tooltip="implicit leading bit (not stored)",
+            disabled=True,
+            layout=prism._implicit_layout,
+        )
+        b.add_class("bitprism-implicit")
+        return b
+
+    @staticmethod
+    def _button(label: str, tip: str, prism: "Prism", index: int, action: str) -> W.Button:
+        b = W.Button(description=label, tooltip=tip, layout=prism._nav_layout)
+        b.add_class(f"bitprism-{action}")
+        b.on_click(functools.partial(prism._on_nav_click, index, action))
+        return b
+
+    def show(self, c: Comparison, row: FormatRow) -> None:
+        self.html.value = band_html(c, row, tiles=False)
+        bits = row.bits()
+        for b, ch in zip(self.bits, bits):
+            if b.description != ch:  # skip the trait machinery for unchanged bits
+                b.description = ch
+        kind = row.fields.kind
+        self.implicit.description = "0" if kind in (0, 1) else ("1" if kind == 2 else "·")
+
+
+class Prism(W.VBox):
+    """One value refracted into several formats: bit tiles, fields, stored value, errors.
+
+    ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
+    (numbers are kept as exact text); ``prism.comparison`` is the current ``Comparison``.
+    """
+
+    value = AnyTrait(
+        "0.1", help="the value or expression shown, as exact text (numbers are converted exactly)"
+    )
+    formats = List(
+        AnyTrait(),
+        default_value=list(DEFAULT_FORMATS),
+        help="formats shown, by name, or Format objects for custom layouts",
+    )
+    rounding = Unicode("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
+    overflow = Unicode("standard", help="'standard' (Inf/NaN as the format defines) or 'saturate'")
+    subnormals = Unicode("keep", help="'keep' subnormal results or 'flush' them to zero")
+    seed = Int(None, allow_none=True, help="seed of stochastic rounding (None: fresh draws)")
+    via = Unicode("", help="format the input is rounded to first ('' = direct), e.g. 'float32'")
+    aligned = Bool(True, help="show the weight-aligned view under the bands")
+    source_format = Unicode(
+        "", help="the band whose bit pattern is the source ('' = the typed value is)"
+    )
+    source_code = Int(None, allow_none=True, help="bit pattern of the source band, if any")
+    expression = Unicode("", help="expression computed with per-format arithmetic")
+    message = Unicode("", help="the last error or note shown to the person")
+    comparison = AnyTrait(None, read_only=True, help="the current Comparison (read-only)")
+
+    def __init__(self, value: Any = "0.1", formats: Any = None, **kwargs: Any) -> None:
+        self._suspend = 0
+        self._bands: list[_Band] = []
+        self._band_formats: list[Format] = []
+        self._bit_layout = W.Layout(width="22px", height="22px", padding="0", margin="0 1px")
+        self._implicit_layout = W.Layout(
+            width="22px", height="22px", padding="0", margin="0 1px", border="1px dashed"
+        )
+        self._nav_layout = W.Layout(width="auto", height="24px")
+        self._bit_styles = {}
+        for role in _FIELD_ROLES:
+            fill, text = button_colors(role)
+            self._bit_styles[role] = W.ButtonStyle(button_color=fill, text_color=text)
+        self._build_controls()
+        self._suspend = 1  # one refresh after every initial trait is in place
+        super().__init__(**kwargs)
+        self._suspend = 0
+        self.add_class("bitprism-prism")
+        with self._bulk():
+            self.value = value
+            if formats is not None:
+                self.formats = list(formats)
+
+    # ----- controls --------------------------------------------------------------------------
+    def _build_controls(self) -> None:
+        self.value_input = W.Text(
+            value="", placeholder="value or expression, e.g. 0.1, 0x1.8p-3, 1/3, 2**-24",
+            description="value", continuous_update=False, layout=W.Layout(width="420px"),
+        )
+        self.value_input.add_class("bitprism-value-input")
+        self.value_input.observe(self._on_value_text, "value")
+        self.bits_format = W.Dropdown(options=[], description="bits of", layout=W.Layout(width="240px"))
+        self.bits_input = W.Text(
+            value="", placeholder="0x3c00 or 0b0_01111_0000000000",
+            continuous_update=False, layout=W.Layout(width="300px"),
+        )
+        self.bits_input.add_class("bitprism-bits-input")
+        self.bits_input.observe(self._on_bits_text, "value")
+        self.rounding_menu = W.Dropdown(options=list(ROUNDING_MODES), description="rounding")
+        self.seed_input = W.IntText(value=0, description="seed", layout=W.Layout(width="160px"))
+        self.overflow_menu = W.Dropdown(options=list(OVERFLOW_MODES), description="overflow")
+        self.subnormals_menu = W.Dropdown(options=list(SUBNORMAL_MODES), description="subnormals")
+        self.via_menu = W.Dropdown(options=list(_VIA_CHOICES), description="via")
+        self.aligned_box = W.Checkbox(value=True, description="weight-aligned view", indent=False)
+        for widget, name in (
+            (self.rounding_menu, "rounding"),
+            (self.overflow_menu, "overflow"),
+            (self.subnormals_menu, "subnormals"),
+            (self.via_menu, "via"),
+            (self.aligned_box, "aligned"),
+        ):
+            widget.observe(functools.partial(self._on_control, name), "value")
+        self.seed_input.observe(self._on_seed, "value")
+        self.add_format_menu = W.Dropdown(
+            options=[("add format…", "")] + [(n, n) for n in FORMATS], layout=W.Layout(width="220px")
+        )
+        self.add_format_menu.observe(self._on_add_format, "value")
+        self.expression_input = W.Text(
+            value="", placeholder="e.g. 2048 + 1", description="compute",
+            continuous_update=False, layout=W.Layout(width="420px"),
+        )
+        self.expression_input.add_class("bitprism-expression-input")
+        self.expression_input.observe(self._on_expression_text, "value")
+        self.message_html = W.HTML()
+        self.message_html.add_class("bitprism-message")
+        self.header_html = W.HTML()
+        self.aligned_html = W.HTML()
+        self.evaluation_html = W.HTML()
+        self.bands_box = W.VBox()
+
+    def _layout_children(self) -> None:
+        self.children = [
+            W.HBox([self.value_input, self.add_format_menu]),
+            W.HBox([self.bits_format, self.bits_input]),
+            W.HBox([self.rounding_menu, self.seed_input]),
+            W.HBox([self.overflow_menu, self.subnormals_menu, self.via_menu, self.aligned_box]),
+            self.message_html,
+            self.header_html,
+            self.bands_box,
+            self.aligned_html,
+            self.expression_input,
+            self.evaluation_html,
+        ]
+
+    @contextmanager
+    def _bulk(self) -> Iterator[None]:
+        """Change several traits with one refresh at the end."""
+        self._suspend += 1
+        try:
+            with self.hold_trait_notifications():
+                yield
+        finally:
+            self._suspend -= 1
+        if not self._suspend:
+            self._refresh()
+
+    # ----- validation ------------------------------------------------------------------------
+    @validate("value")
+    def _valid_value(self, proposal: Any) -> str:
+        v = proposal["value"]
+        if isinstance(v, str):
+            from ..numerics.parse import parse
+
+            try:
+                parse(v)
+            except ParseError as exc:
+                raise TraitError(f"value {v!r} is not a number: {_message_for(exc)}") from exc
+            return v.strip()
+        try:
+            return exact_text(as_exact(v))
+        except BitprismError as exc:
+            raise TraitError(str(exc)) from exc
+
+    @validate("formats")
+    def _valid_formats(self, proposal: Any) -> list[Any]:
+        out: list[Any] = []
+        seen = set()
+        for spec in proposal["value"]:
+            try:
+                f = get_format(spec)
+            except BitprismError as exc:
+                raise TraitError(str(exc)) from exc
+            if f in seen:
+                continue
+            seen.add(f)
+            out.append(f.name if FORMATS.get(f.name) == f else f)
+        if not out:
+            raise TraitError("a Prism needs at least one format")
+        return out
+
+    @validate("rounding", "overflow", "subnormals")
+    def _valid_option(self, proposal: Any) -> str:
+        name = proposal["trait"].name
+        kwargs = {name: proposal["value"]}
+        try:
+            opts = CastOptions(**kwargs)
+        except BitprismError as exc:
+            raise TraitError(str(exc)) from exc
+        return str(getattr(opts, name))
+
+    @validate("via", "source_format")
+    def _valid_format_name(self, proposal: Any) -> str:
+        v = proposal["value"]
+        if not v:
+            return ""
+        if proposal["trait"].name == "source_format":
+            for f in self.format_objects:
+                if f.name == v:
+                    return v
+        try:
+            return get_format(v).name
+        except BitprismError as exc:
+            raise TraitError(str(exc)) from exc
+
+    # ----- reactions -------------------------------------------------------------------------
+    @observe(
+        "value", "formats", "rounding", "overflow", "subnormals", "seed", "via", "aligned",
+        "source_format", "source_code", "expression",
+    )
+    def _on_trait(self, change: Any) -> None:
+        self._refresh()
+
+    @property
+    def format_objects(self) -> list[Format]:
+        return [get_format(f) for f in self.formats]
+
+    def _refresh(self) -> None:
+        """The one path from traits to what is shown."""
+        if self._suspend:
+            return
+        try:
+            fmts = self.format_objects
+            pinned = None
+            if self.source_format and self.source_code is not None:
+                pin_fmt = next((f for f in fmts if f.name == self.source_format), None)
+                if pin_fmt is not None:
+                    pinned = (pin_fmt, self.source_code)
+            c = compare(
+                self.value,
+                fmts,
+                rounding=self.rounding,  # type: ignore[arg-type]
+                overflow=self.overflow,  # type: ignore[arg-type]
+                subnormals=self.subnormals,  # type: ignore[arg-type]
+                seed=self.seed,
+                via=self.via or None,
+                pinned=pinned,
+            )
+        except Exception as exc:  # keep the last good view, say what went wrong
+            self.message = _message_for(exc)
+            return
+        self.set_trait("comparison", c)
+        self.message = ""
+        if fmts != self._band_formats:
+            self._rebuild_bands(fmts)
+        self._show(c)
+
+    def _rebuild_bands(self, fmts: list[Format]) -> None:
+        self._bands = [_Band(self, f, i) for i, f in enumerate(fmts)]
+        self._band_formats = list(fmts)
+        self.bands_box.children = [b.box for b in self._bands]
+        current = self.bits_format.value
+        self.bits_format.options = [f.name for f in fmts]
+        if current in self.bits_format.options:
+            self.bits_format.value = current
+        if not self.children:
+            self._layout_children()
+
+    def _show(self, c: Comparison) -> None:
+        self.header_html.value = header_html(c)
+        for band, row in zip(self._bands, c.rows):
+            band.show(c, row)
+            band.box.layout.border = (
+                "2px solid #6f51b4" if row.format.name == self.source_format else ""
+            )
+        self.aligned_html.value = aligned_html(c) if self.aligned else ""
+        self._sync_controls()
+        self._show_evaluation()
+
+    def _sync_controls(self) -> None:
+        self._suspend += 1
+        try:
+            self.value_input.value = self.value
+            self.rounding_menu.value = self.rounding
+            self.overflow_menu.value = self.overflow
+            self.subnormals_menu.value = self.subnormals
+            self.via_menu.value = self.via if self.via in ("", "float32") else ""
+            self.aligned_box.value = self.aligned
+            if self.seed is not None:
+                self.seed_input.value = self.seed
+        finally:
+            self._suspend -= 1
+
+    def _show_evaluation(self) -> None:
+        if not self.expression.strip():
+            self.evaluation_html.value = ""
+            return
+        from ..numerics.evaluate import evaluate
+
+        try:
+            evs = [
+                evaluate(
+                    self.expression, f, rounding=self.rounding, overflow=self.overflow,
+                    subnormals=self.subnormals, seed=self.seed,
+                )
+                for f in self.format_objects
+            ]
+        except Exception as exc:
+            self.message = _message_for(exc)
+            return
+        self.evaluation_html.value = evaluations_html(evs)
+
+    @observe("message")
+    def _on_message(self, change: Any) -> None:
+        from html import escape
+
+        text = change["new"]
+        self.message_html.value = (
+            f'<div style="color:#b00020;font-weight:bold">{escape(text)}</div>' if text else ""
+        )
+
+    # ----- callbacks -------------------------------------------------------------------------
+    @_guarded
+    def _on_value_text(self, change: Any) -> None:
+        if self._suspend:
+            return
+        self.submit_value(change["new"])
+
+    def submit_value(self, text: str) -> None:
+        """What Enter in the value box does: parse, and on error keep the last view."""
+        from ..numerics.parse import parse
+
+        try:
+            parse(text)
+        except ParseError as exc:
+            self.message = _message_for(exc)
+            return
+        with self._bulk():
+            self.source_format = ""
+            self.source_code = None
+            self.value = text
+
+    @_guarded
+    def _on_bits_text(self, change: Any) -> None:
+        if self._suspend or not change["new"].strip():
+            return
+        self.submit_bits(change["new"], self.bits_format.value)
+
+    def submit_bits(self, text: str, fmt: Any) -> None:
+        """Set one band's raw bit pattern; the others follow from its exact value."""
+        from ..numerics.parse import parse_bits
+
+        f = get_format(fmt)
+        try:
+            code = parse_bits(text, f)
+        except ParseError as exc:
+            self.message = _message_for(exc)
+            return
+        self.set_source(f, code)
+
+    def set_source(self, fmt: Any, code: int) -> None:
+        """Make ``fmt``'s band the source at bit pattern ``code`` and recompute all others."""
+        f = get_format(fmt)
+        f.classify(code)
+        if f not in self.format_objects:
+            raise BitprismError(f"format {f.name!r} is not shown in this Prism")
+        x: ExactValue = decode_exact(code, f)
+        with self._bulk():
+            self.value = exact_text(x)
+            self.source_format = f.name
+            self.source_code = code
+
+    @_guarded
+    def _on_bit_click(self, index: int, bit: int, button: Any = None) -> None:
+        row = self.comparison.rows[index]
+        self.set_source(row.format, row.code ^ (1 << bit))
+
+    @_guarded
+    def _on_nav_click(self, index: int, action: str, button: Any = None) -> None:
+        row: FormatRow = self.comparison.rows[index]
+        f = row.format
+        if action == "remove":
+            if len(self.formats) == 1:
+                self.message = "the last format cannot be removed"
+                return
+            with self._bulk():
+                if self.source_format == f.name:
+                    self.source_format = ""
+                    self.source_code = None
+                self.formats = [g for g in self.formats if get_format(g) != f]
+            return
+        if action in ("down", "up"):
+            n = row.next_down if action == "down" else row.next_up
+            if n is None:
+                self.message = f"{f.name}: no value {'below' if action == 'down' else 'above'} {row.shortest}"
+                return
+            code = n.code
+        elif action == "largest":
+            code = f.max_code
+        elif action == "normal":
+            code = (1 << f.significand_bits) if f.has_zero else 0
+        else:
+            code = 1 if f.has_subnormals else ((1 << f.significand_bits) if f.has_zero else 0)
+        self.set_source(f, code)
+
+    @_guarded
+    def _on_control(self, name: str, change: Any) -> None:
+        if self._suspend:
+            return
+        setattr(self, name, change["new"])
+
+    @_guarded
+    def _on_seed(self, change: Any) -> None:
+        if self._suspend:
+            return
+        self.seed = change["new"]
+
+    @_guarded
+    def _on_add_format(self, change: Any) -> None:
+        name = change["new"]
+        if not name:
+            return
+        self.formats = list(self.formats) + [name]
+        self._suspend += 1
+        try:
+            self.add_format_menu.value = ""
+        finally:
+            self._suspend -= 1
+
+    @_guarded
+    def _on_expression_text(self, change: Any) -> None:
+        if self._suspend:
+            return
+        self.expression = change["new"]
+
+    # ----- headless output ---------------------------------------------------------------------
+    def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
+        bundle = super()._repr_mimebundle_(**kwargs) or {}
+        if self.comparison is not None:
+            bundle = dict(bundle)
+            bundle.update(self.comparison._repr_mimebundle_())
+        return bundle
+
+    def to_html(self) -> str:
+        """A static HTML snapshot of the current view (same markup as the bands)."""
+        return self.comparison.to_html(aligned=self.aligned) if self.comparison else ""
