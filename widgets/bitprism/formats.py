@@ -106,6 +106,13 @@ class Format:
                 f"Format {self.name!r}: has_zero=False is supported for unsigned formats only"
             )
         if self.emax > _F64_EMAX or self.emin < _F64_EMIN:
+            low, high = self._bias_bounds()
+            if low > high:
+                raise BitprismError(
+                    f"Format {self.name!r}: {w} exponent bits span more binades than float64 "
+                    f"holds ({_F64_EMIN}..{_F64_EMAX}) with specials={self.specials!r}; "
+                    "no bias fits; use fewer exponent bits"
+                )
             raise BitprismError(
                 f"Format {self.name!r}: exponent range [{self.emin}, {self.emax}] does not fit "
                 f"in float64's [{_F64_EMIN}, {_F64_EMAX}]; choose a bias in "
@@ -117,10 +124,14 @@ class Format:
                 f"{self.bits} bits of the layout"
             )
 
-    def _bias_range_text(self) -> str:
+    def _bias_bounds(self) -> tuple[int, int]:
         top = self.max_biased_exponent
         bottom = 1 if self.has_zero else 0
-        return f"{top - _F64_EMAX}..{bottom - _F64_EMIN}"
+        return top - _F64_EMAX, bottom - _F64_EMIN
+
+    def _bias_range_text(self) -> str:
+        low, high = self._bias_bounds()
+        return f"{low}..{high}"
 
     # ----- widths -------------------------------------------------------------------------
     @property

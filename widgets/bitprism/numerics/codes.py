@@ -132,7 +132,8 @@ def _encode_array(
         for start in range(0, flat_in.size, _BLOCK):
             block = flat_in[start : start + _BLOCK]
             if block.dtype != np.float32:
-                block = block.astype(np.float32)
+                with np.errstate(invalid="ignore"):  # signaling NaNs convert quietly
+                    block = block.astype(np.float32)
             encode_table(block.view(np.uint32), fmt, options, flat_out[start : start + _BLOCK], progress)
         return out
     if arr.dtype == kernel_dtype:
@@ -140,7 +141,8 @@ def _encode_array(
         encode_bits(bits, src, fmt, options, flat_out, rng, progress)
         return out
     for start in range(0, flat_in.size, _BLOCK):
-        block = flat_in[start : start + _BLOCK].astype(kernel_dtype)
+        with np.errstate(invalid="ignore"):  # signaling NaNs convert quietly
+            block = flat_in[start : start + _BLOCK].astype(kernel_dtype)
         encode_bits(block.view(src.uint), src, fmt, options, flat_out[start : start + _BLOCK], rng, progress)
     return out
 

@@ -221,23 +221,34 @@ def _blend_low(plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray) -> N
     src, fmt, mode = plan.src, plan.fmt, plan.mode
     u = src.uint
     fa, fb = a.view(src.float), b.view(src.float)
-    np.add(fa, src.float(plan.magic), out=fb)
-    if mode != "roundTiesToEven":
-        r = np.subtract(fb, src.float(plan.magic))  # the rounded value, exact
-        if mode == "roundTiesToAway":
-            step = np.subtract(fa, r) == src.float(plan.magic) * src.float(2.0 ** -(src.t + 1))
-            np.add(b, step, out=b, casting="unsafe")
-        else:
-            np.subtract(b, np.greater(r, fa), out=b, casting="unsafe")  # now rounded down
-            if mode != "roundTowardZero":
-                up = np.not_equal(r, fa)
-                negative = _sign_of(bits, src).astype(bool)
-                up &= negative if mode == "roundTowardNegative" else ~negative
-                np.add(b, up, out=b, casting="unsafe")
+    # NaN patterns pass through this float arithmetic too (they are fixed up afterwards):
+    # signaling NaNs must not raise the invalid flag into a warning
+    with np.errstate(invalid="ignore", over="ignore"):
+        np.add(fa, src.float(plan.magic), out=fb)
+        if mode != "roundTiesToEven":
+            _directed_low(plan, bits, fa, fb, b)
     np.subtract(b, u(plan.magic_bits), out=b)
     np.minimum(b, u(1 << fmt.significand_bits), out=b)
     if plan.options.subnormals == "flush":
         np.multiply(b, np.right_shift(b, u(fmt.significand_bits)), out=b)
+
+
+def _directed_low(
+    plan: _Plan, bits: np.ndarray, fa: np.ndarray, fb: np.ndarray, b: np.ndarray
+) -> None:
+    """Turn the hardware's roundTiesToEven of |x| + M (in ``fb``/``b``) into the plan's mode."""
+    src, mode = plan.src, plan.mode
+    r = np.subtract(fb, src.float(plan.magic))  # the rounded value, exact
+    if mode == "roundTiesToAway":
+        step = np.subtract(fa, r) == src.float(plan.magic) * src.float(2.0 ** -(src.t + 1))
+        np.add(b, step, out=b, casting="unsafe")
+    else:
+        np.subtract(b, np.greater(r, fa), out=b, casting="unsafe")  # now rounded down
+        if mode != "roundTowardZero":
+            up = np.not_equal(r, fa)
+            negative = _sign_of(bits, src).astype(bool)
+            up &= negative if mode == "roundTowardNegative" else ~negative
+            np.add(b, up, out=b, casting="unsafe")
 
 
 def _low_codes(plan: _Plan, bits: np.ndarray, options: CastOptions, rng) -> np.ndarray:
@@ -381,7 +392,8 @@ def _table(fmt: Format, options: CastOptions) -> np.ndarray:
     if src is SOURCE32:
         encode_bits(patterns, src, fmt, options, table)
     else:
-        wide = patterns.view(np.float32).astype(np.float64).view(np.uint64)
+        with np.errstate(invalid="ignore"):  # signaling NaN patterns convert quietly
+            wide = patterns.view(np.float32).astype(np.float64).view(np.uint64)
         encode_bits(wide, src, fmt, options, table)
     table.setflags(write=False)
     return table
