@@ -188,7 +188,27 @@ N_DRAWS = 200_000
     ],
 )
 def test_stochastic_probability(name, x, down, up, p):
-    codes = encode(np.full(N_DRAWS, x), name, rounding="stochastic", seed=20240611)
+    _check_stochastic(name, np.full(N_DRAWS, x), x, down, up, p)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64], ids=["f32", "f64"])
+@pytest.mark.parametrize(
+    "name, x, down, up, p",
+    [  # subnormal and underflow range: the same Higham-Pranesh definition (§7), where the
+       # gap is the subnormal step 2^(emin - t) (fp16: 2^-24, IEEE 754-2008 Table 3.5;
+       # E4M3: 2^-9, FP8 paper Table 1); probabilities from library arithmetic (fractions)
+        ("float16", 1.25 * 2.0**-24, 2.0**-24, 2.0**-23, 0.25),
+        ("float16", 2.0**-26, 0.0, 2.0**-24, 0.25),
+        ("float16", 3.5 * 2.0**-24, 3 * 2.0**-24, 4 * 2.0**-24, 0.5),
+        ("float8_e4m3fn", 2.0**-10 + 2.0**-12, 0.0, 2.0**-9, 0.625),
+    ],
+)
+def test_stochastic_probability_below_the_normal_range(name, x, down, up, p, dtype):
+    _check_stochastic(name, np.full(N_DRAWS, x, dtype), x, down, up, p)
+
+
+def _check_stochastic(name, data, x, down, up, p):
+    codes = encode(data, name, rounding="stochastic", seed=20240611)
     values = bitprism.decode(codes, name)
     assert set(np.unique(values)) <= {down, up}
     observed = float(np.mean(values == up))

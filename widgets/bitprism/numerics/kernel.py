@@ -117,7 +117,7 @@ def _plan(src: _Source, fmt: Format, options: CastOptions) -> _Plan:
         and options.overflow == "standard"
         and options.subnormals == "keep"
     )
-    blend = fmt.has_zero and mode != "stochastic" and not same_range
+    blend = fmt.has_zero and not same_range
     offset = ((1 << t) << d) if blend else 0
     k_add = (inc - rebias - offset) % (1 << src.width)
     low_bits = max(fmt.emin + src.bias, 1) << src.t
@@ -142,6 +142,7 @@ class _Scratch:
         self.a = np.empty(n, uint)
         self.b = np.empty(n, uint)
         self.c = np.empty(n, uint)
+        self.s = np.empty(n, uint)
 
 
 def _random_bits(rng: np.random.Generator, n: int, uint: type) -> np.ndarray:
@@ -150,17 +151,27 @@ def _random_bits(rng: np.random.Generator, n: int, uint: type) -> np.ndarray:
     return rng.bit_generator.random_raw(words).view(uint)[:n]
 
 
-def _sign_of(bits: np.ndarray, src: _Source) -> np.ndarray:
-    return np.right_shift(bits, src.uint(src.width - 1))
-
-
 def _chunk_codes(
-    plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray, rng
+    plan: _Plan,
+    bits: np.ndarray,
+    a: np.ndarray,
+    b: np.ndarray,
+    c: np.ndarray,
+    side: np.ndarray,
+    rng,
 ) -> np.ndarray:
     """Codes for one chunk in ``c``; leaves |bits| in ``a``. Elements below ``low_bits`` are
-    exact only when ``plan.blend`` or ``plan.same_range``; Inf/NaN inputs are not final."""
+    exact only when ``plan.blend`` or ``plan.same_range``; Inf/NaN inputs are not final.
+    For the directed modes, ``side`` holds 1 where the magnitude rounds up (the sign that the
+    direction points away from zero), else 0."""
     src, fmt, mode = plan.src, plan.fmt, plan.mode
     u = src.uint
+    words = None
+    directed = mode in ("roundTowardPositive", "roundTowardNegative")
+    if directed:
+        np.right_shift(bits, u(src.width - 1), out=side)
+        if mode == "roundTowardPositive":
+            np.bitwise_xor(side, u(1), out=side)
     np.bitwise_and(bits, u(src.abs_mask), out=a)
     if plan.same_range:
         x = bits  # same exponent field: the sign bit rides along untouched
@@ -175,16 +186,13 @@ def _chunk_codes(
         np.right_shift(x, d, out=c)
         np.bitwise_and(c, u(1), out=c)
         np.add(c, x, out=c)
-    elif mode in ("roundTowardPositive", "roundTowardNegative"):
+    elif directed:
         # the magnitude rounds up (by 2^d - 1 before truncation) for one sign only
-        np.right_shift(bits, u(src.width - 1), out=c)
-        if mode == "roundTowardPositive":
-            np.bitwise_xor(c, u(1), out=c)
-        np.multiply(c, u((1 << plan.d) - 1), out=c)
+        np.multiply(side, u((1 << plan.d) - 1), out=c)
         np.add(c, x, out=c)
     elif mode == "stochastic":
-        r = _random_bits(rng, a.size, u)
-        np.bitwise_and(r, u((1 << plan.d) - 1), out=c)
+        words = _random_bits(rng, a.size, u)  # also serves the subnormal range below
+        np.bitwise_and(words, u((1 << plan.d) - 1), out=c)
         np.add(c, x, out=c)
     else:
         np.copyto(c, x)
@@ -193,16 +201,17 @@ def _chunk_codes(
     if plan.same_range:
         return c
     if plan.blend:
-        _blend_low(plan, bits, a, b)
-        np.add(c, b, out=c)
-    np.minimum(c, u(plan.clamp), out=c)
-    if plan.clamp > fmt.max_code and mode in ("roundTowardPositive", "roundTowardNegative"):
-        # the side rounding toward zero overflows to max, not to Inf/NaN
-        np.right_shift(bits, u(src.width - 1), out=b)
-        if mode == "roundTowardNegative":
-            np.bitwise_xor(b, u(1), out=b)
-        np.multiply(b, np.greater(c, u(fmt.max_code)), out=b, casting="unsafe")
-        np.subtract(c, b, out=c)
+        if a.min() < u(plan.low_bits):
+            _blend_low(plan, a, b, words, side if directed else None)
+            np.add(c, b, out=c)
+        else:  # nothing below emin in this chunk: only undo the blend offset
+            np.add(c, u(1 << fmt.significand_bits), out=c)
+    if plan.clamp > fmt.max_code and directed:
+        # the side rounding toward zero overflows to max, the other to Inf (or its NaN)
+        np.add(side, u(fmt.max_code), out=b)
+        np.minimum(c, b, out=c)
+    else:
+        np.minimum(c, u(plan.clamp), out=c)
     if fmt.signed:
         np.right_shift(bits, u(src.width - 1), out=b)
         if not fmt.has_negative_zero:  # no -0: a zero result takes no sign
@@ -212,12 +221,20 @@ def _chunk_codes(
     return c
 
 
-def _blend_low(plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray) -> None:
+def _blend_low(
+    plan: _Plan,
+    a: np.ndarray,
+    b: np.ndarray,
+    words: np.ndarray | None,
+    side: np.ndarray | None,
+) -> None:
     """Subnormal-range codes for every element into ``b``, saturating at the min-normal code
     (so that adding ``b`` to the normal path, which carries the matching offset, blends the
     two without a select). Adding M = 2^(emin - t + t_src) to |x| makes the hardware round
     |x| to a multiple of the target's subnormal step (roundTiesToEven); the other directions
-    correct that by one step from the exact remainder r - |x|, which is computed exactly."""
+    correct that by one step from the exact remainder r - |x|, which is computed exactly.
+    Stochastic rounding compares the remainder, scaled to t_src + 1 bits, with as many random
+    bits: probabilities here are exact to 2^-24 (float32 data) or 2^-53 (float64 data)."""
     src, fmt, mode = plan.src, plan.fmt, plan.mode
     u = src.uint
     fa, fb = a.view(src.float), b.view(src.float)
@@ -226,7 +243,7 @@ def _blend_low(plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray) -> N
     with np.errstate(invalid="ignore", over="ignore"):
         np.add(fa, src.float(plan.magic), out=fb)
         if mode != "roundTiesToEven":
-            _directed_low(plan, bits, fa, fb, b)
+            _directed_low(plan, fa, fb, b, words, side)
     np.subtract(b, u(plan.magic_bits), out=b)
     np.minimum(b, u(1 << fmt.significand_bits), out=b)
     if plan.options.subnormals == "flush":
@@ -234,21 +251,35 @@ def _blend_low(plan: _Plan, bits: np.ndarray, a: np.ndarray, b: np.ndarray) -> N
 
 
 def _directed_low(
-    plan: _Plan, bits: np.ndarray, fa: np.ndarray, fb: np.ndarray, b: np.ndarray
+    plan: _Plan,
+    fa: np.ndarray,
+    fb: np.ndarray,
+    b: np.ndarray,
+    words: np.ndarray | None,
+    side: np.ndarray | None,
 ) -> None:
     """Turn the hardware's roundTiesToEven of |x| + M (in ``fb``/``b``) into the plan's mode."""
     src, mode = plan.src, plan.mode
-    r = np.subtract(fb, src.float(plan.magic))  # the rounded value, exact
-    if mode == "roundTiesToAway":
-        step = np.subtract(fa, r) == src.float(plan.magic) * src.float(2.0 ** -(src.t + 1))
+    f = src.float
+    r = np.subtract(fb, f(plan.magic))  # the rounded value, exact
+    unit = f(plan.magic) * f(2.0 ** -src.t)  # the target's subnormal step
+    if mode == "stochastic":
+        assert words is not None
+        below = np.greater(r, fa)
+        np.subtract(b, below, out=b, casting="unsafe")  # now rounded down
+        rem = np.subtract(fa, r)  # exact: both lie within one step of each other
+        rem += below * unit  # remainder above the lower neighbour, in [0, unit)
+        rem *= f(2.0 ** (src.t + 1)) / unit  # scaled to [0, 2^(t_src+1)), exact
+        draw = np.right_shift(words, src.uint(src.width - src.t - 1)).astype(f)
+        np.add(b, draw < rem, out=b, casting="unsafe")
+    elif mode == "roundTiesToAway":
+        step = np.subtract(fa, r) == unit * f(0.5)
         np.add(b, step, out=b, casting="unsafe")
     else:
         np.subtract(b, np.greater(r, fa), out=b, casting="unsafe")  # now rounded down
-        if mode != "roundTowardZero":
+        if side is not None:  # toward ±Inf: one step up where inexact, on that side
             up = np.not_equal(r, fa)
-            negative = _sign_of(bits, src).astype(bool)
-            up &= negative if mode == "roundTowardNegative" else ~negative
-            np.add(b, up, out=b, casting="unsafe")
+            np.add(b, np.multiply(up, side, dtype=b.dtype), out=b)
 
 
 def _low_codes(plan: _Plan, bits: np.ndarray, options: CastOptions, rng) -> np.ndarray:
@@ -347,8 +378,8 @@ def encode_bits(
     for start in range(0, n, CHUNK):
         chunk = bits[start : start + CHUNK]
         k = chunk.size
-        a, b, c = scratch.a[:k], scratch.b[:k], scratch.c[:k]
-        c = _chunk_codes(plan, chunk, a, b, c, rng)
+        a, b, c, side = scratch.a[:k], scratch.b[:k], scratch.c[:k], scratch.s[:k]
+        c = _chunk_codes(plan, chunk, a, b, c, side, rng)
         if not (plan.blend or plan.same_range) and a.min() < low_bits:
             idx = np.flatnonzero(a < low_bits)
             c[idx] = _low_codes(plan, chunk[idx], options, rng)
