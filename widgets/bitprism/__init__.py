@@ -20,7 +20,10 @@ from .numerics.evaluate import Evaluation, evaluate
 from .numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
 from .numerics.parse import parse, parse_bits
 from .tensors.adapters import as_array
+from .tensors.advisor import ScaleAdvice, suggest_scale
 from .tensors.files import open_tensor, open_tensors
+from .tensors.mx import MX_FORMATS, MXFormat, MXResult, decode_mx, get_mx_format, mx_quantize
+from .tensors.scan import ExponentHistogram, FormatScan, ScanQuantizer, ScanResult, scan
 
 __all__ = [
     "BitprismError",
@@ -29,39 +32,52 @@ __all__ = [
     "Comparison",
     "Evaluation",
     "ExactValue",
+    "ExponentHistogram",
     "FORMATS",
     "Fields",
     "Format",
     "FormatRow",
+    "FormatScan",
+    "MXFormat",
+    "MXResult",
+    "MX_FORMATS",
     "OVERFLOW_MODES",
     "ParseError",
     "ROUNDING_MODES",
     "SUBNORMAL_MODES",
+    "ScaleAdvice",
+    "ScanQuantizer",
+    "ScanResult",
     "UnsupportedInputError",
     "__version__",
     "as_array",
     "cast",
     "compare",
     "decode",
+    "decode_mx",
     "encode",
     "evaluate",
     "exact_decimal",
     "fields",
     "get_format",
+    "get_mx_format",
+    "mx_quantize",
     "next_down",
     "next_up",
     "open_tensor",
     "open_tensors",
     "parse",
     "parse_bits",
+    "scan",
     "shortest_decimal",
+    "suggest_scale",
     "ulp",
     "ulp_distance",
 ]
 
 # Names loaded on first access, so that `import bitprism` stays free of UI and plotting
 # libraries and of modules still being imported lazily by their own layer.
-_LAZY: dict[str, str] = {"Prism": ".ui.prism"}
+_LAZY: dict[str, str] = {"Prism": ".ui.prism", "range_chart": ".plots"}
 
 
 def __getattr__(name: str) -> Any:

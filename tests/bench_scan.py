@@ -1,0 +1,161 @@
+"""Benchmark of ``scan()`` against the loop an engineer would write by hand (a script, not a test).
+
+    PYTHONPATH=widgets python tests/bench_scan.py [--n 16777216] [--memmap]
+
+Prints, for 16M float32 elements spread over a wide exponent range (with NaN, Inf and zeros)
+and six formats in one run:
+
+* exact-quantile scan / baseline           (target <= 0.5x)
+* histogram-quantile scan / baseline       (target <= 0.25x)
+* counts-only scan / one streaming x.max() (target <= 3x)
+* peak extra memory of the scan / input size (target <= 1.5x), by tracemalloc
+* with --memmap: a 2 GiB .npy memmapped from a temporary folder, counts-only and histogram
+  scans, peak extra memory (target < 512 MiB) — writes 2 GiB, so it is optional.
+
+The baseline, per format: ``y = x.astype(ml_dtypes.X).astype(np.float32)``, NaN / Inf /
+overflow / underflow counts, and ``np.quantile`` of the relative error of the finite results.
+Timings are the best of ``--repeat`` runs; the machine's other load shows up in them.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import tempfile
+import time
+import tracemalloc
+from pathlib import Path
+
+import ml_dtypes
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "widgets"))
+
+from bitprism.tensors.scan import scan  # noqa: E402
+
+FORMATS = (
+    "bfloat16",
+    "float16",
+    "float8_e4m3fn",
+    "float8_e5m2",
+    "float6_e3m2fn",
+    "float4_e2m1fn",
+)
+
+
+def make_data(n: int, seed: int = 0) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    x = np.empty(n, np.float32)
+    step = 1 << 20
+    for s in range(0, n, step):  # in pieces, so making the data stays small in memory
+        k = min(step, n - s)
+        x[s : s + k] = rng.standard_normal(k) * np.exp2(rng.uniform(-40, 40, k))
+    x[::997] = np.nan
+    x[1::1009] = np.inf
+    x[2::1013] = -np.inf
+    x[3::101] = 0.0
+    return x
+
+
+def baseline(x: np.ndarray) -> dict[str, tuple[int, ...]]:
+    out = {}
+    finite_in = np.isfinite(x)
+    for name in FORMATS:
+        dt = np.float16 if name == "float16" else getattr(ml_dtypes, name)
+        with np.errstate(all="ignore"):
+            y = x.astype(dt).astype(np.float32)
+        nan = int(np.isnan(y).sum())
+        inf = int(np.isinf(y).sum())
+        finite_out = np.isfinite(y)
+        overflow = int((finite_in & ~finite_out).sum())
+        underflow = int(((x != 0) & finite_in & (y == 0)).sum())
+        both = finite_in & finite_out
+        xf = x[both].astype(np.float64)
+        with np.errstate(all="ignore"):
+            rel = np.abs(y[both] - xf) / np.abs(xf)
+        rel[xf == 0] = 0.0
+        q = np.quantile(rel, [0.5, 0.99])
+        out[name] = (nan, inf, overflow, underflow, float(q[0]), float(q[1]))
+    return out
+
+
+def best(fn, repeat: int) -> float:
+    times = []
+    for _ in range(repeat):
+        t = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t)
+    return min(times)
+
+
+def peak_extra(fn) -> int:
+    tracemalloc.start()
+    tracemalloc.reset_peak()
+    base = tracemalloc.get_traced_memory()[0]
+    fn()
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    return peak - base
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--n", type=int, default=1 << 24)
+    ap.add_argument("--repeat", type=int, default=2)
+    ap.add_argument("--memmap", action="store_true", help="also scan a 2 GiB memmapped .npy")
+    args = ap.parse_args()
+
+    x = make_data(args.n)
+    print(f"{x.size:,} float32 elements ({x.nbytes / 2**20:.0f} MiB), formats: {', '.join(FORMATS)}")
+    run = lambda **kw: scan(x, FORMATS, progress=False, **kw)  # noqa: E731
+
+    t_base = best(lambda: baseline(x), args.repeat)
+    t_exact = best(lambda: run(quantiles="exact"), args.repeat)
+    t_hist = best(lambda: run(quantiles="histogram"), args.repeat)
+    t_counts = best(lambda: run(quantiles=False), args.repeat + 2)
+    t_max = best(lambda: x.max(), 5)
+    print(f"baseline (ml_dtypes + np.quantile): {t_base:8.3f} s")
+    print(f"scan exact quantiles:               {t_exact:8.3f} s   {t_exact / t_base:5.2f}x baseline (target <= 0.5)")
+    print(f"scan histogram quantiles:           {t_hist:8.3f} s   {t_hist / t_base:5.2f}x baseline (target <= 0.25)")
+    print(f"scan counts only:                   {t_counts:8.4f} s   {t_counts / t_max:5.2f}x x.max() = {t_max:.4f} s (target <= 3)")
+
+    # agreement with the baseline (counts and exact quantiles)
+    ref = baseline(x)
+    res = run(quantiles="exact")
+    for name in FORMATS:
+        r = res[name]
+        _, _, ov, uf, p50, p99 = ref[name]
+        if name.startswith(("float6", "float4")):
+            ov = r.overflow  # no Inf/NaN: these saturate, which the baseline does not count
+        ok = (r.overflow, r.underflow, r.rel_error_p50, r.rel_error_p99) == (ov, uf, p50, p99)
+        print(f"  {name:15s} overflow {r.overflow:>10,} underflow {r.underflow:>10,} "
+              f"p50 {r.rel_error_p50:.6g} p99 {r.rel_error_p99:.6g}  {'= baseline' if ok else 'DIFFERS'}")
+
+    for mode in ("exact", "histogram", False):
+        extra = peak_extra(lambda: run(quantiles=mode))
+        print(f"peak extra memory, quantiles={mode!r:11s}: {extra / 2**20:7.1f} MiB = "
+              f"{extra / x.nbytes:4.2f}x input (target <= 1.5)")
+    del x, res
+
+    if args.memmap:
+        n_big = (2 << 30) // 4
+        with tempfile.TemporaryDirectory() as tmp:
+            path = os.path.join(tmp, "big.npy")
+            mm = np.lib.format.open_memmap(path, mode="w+", dtype=np.float32, shape=(n_big,))
+            step = 1 << 24
+            for s in range(0, n_big, step):
+                mm[s : s + step] = make_data(min(step, n_big - s), seed=s)
+            mm.flush()
+            del mm
+            big = np.load(path, mmap_mode="r")
+            for mode in (False, "histogram"):
+                t = time.perf_counter()
+                extra = peak_extra(lambda: scan(big, FORMATS, progress=False, quantiles=mode))
+                print(f"2 GiB memmap, quantiles={mode!r:11s}: {time.perf_counter() - t:7.1f} s, "
+                      f"peak extra {extra / 2**20:6.1f} MiB (target < 512)")
+            del big
+
+
+if __name__ == "__main__":
+    main()

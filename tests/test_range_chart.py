@@ -1,0 +1,62 @@
+"""The range chart: drawn headless (Agg), saved as a PNG, one row per format."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import matplotlib
+
+matplotlib.use("Agg")  # headless backend before pyplot or any figure is made
+
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+
+from bitprism.plots import range_chart  # noqa: E402
+from bitprism.tensors.scan import scan  # noqa: E402
+
+
+def _data() -> np.ndarray:
+    rng = np.random.default_rng(0)
+    x = (rng.standard_normal(5000) * np.exp2(rng.uniform(-30, 30, 5000))).astype(np.float32)
+    x[:5] = [np.nan, np.inf, 0.0, -0.0, 2.0**-140]
+    return x
+
+
+def test_plot_returns_a_figure_with_one_row_per_format(tmp_path) -> None:
+    from matplotlib.figure import Figure
+
+    fmts = ("bfloat16", "float16", "float8_e4m3fn", "float4_e2m1fn")
+    res = scan(_data(), fmts, progress=False)
+    fig = res.plot()
+    assert isinstance(fig, Figure)
+    axes = fig.get_axes()
+    assert len(axes) == len(fmts)
+    assert [ax.get_ylabel() for ax in axes] == list(fmts)
+    # the share written on the float16 overflow band is the scan's own fraction
+    texts = [t.get_text() for t in axes[1].texts]
+    share = 100 * res["float16"].overflow / res.size
+    assert any(t.startswith("overflow ") and f"{share:.3g}%" in t for t in texts), texts
+    # the bars are the exponent histogram (same total in every row)
+    heights = sum(p.get_height() for p in axes[0].patches if p.get_width() == pytest.approx(0.9))
+    assert heights == sum(res.histogram.counts)
+    out = tmp_path / "range.png"
+    fig.savefig(out, dpi=60)
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_plot_handles_block_formats_and_empty_input(tmp_path) -> None:
+    class Halve:
+        name = "halve"
+
+        def dequantize_block(self, x: np.ndarray) -> np.ndarray:
+            return np.round(x * 2) / 2
+
+    fig = range_chart(scan(np.zeros(0, np.float32), ["float16", Halve()], progress=False))
+    fig.savefig(tmp_path / "empty.png", dpi=40)
+    assert len(fig.get_axes()) == 2
+
+
+def test_importing_scan_does_not_import_matplotlib() -> None:
+    code = "import sys, bitprism.tensors.scan; sys.exit('matplotlib' in sys.modules)"
+    assert subprocess.run([sys.executable, "-c", code]).returncode == 0

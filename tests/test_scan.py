@@ -1,0 +1,590 @@
+"""Tests of ``bitprism.tensors.scan``: every figure is checked against an independent computation
+written here (ml_dtypes / numpy casts, ``np.quantile``, ``fractions.Fraction``) or against a
+published reference value named beside it.
+
+"exact" quantiles are checked for equality with ``np.quantile(rel, q, method="linear")`` (numpy's
+default, Hyndman & Fan type 7) of the relative errors of the elements whose input and result are
+both finite.
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+from fractions import Fraction
+
+import ml_dtypes
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import bitprism.tensors.scan as scan_mod
+from bitprism.errors import BitprismError
+from bitprism.formats import get_format
+from bitprism.numerics.options import CastOptions
+from bitprism.tensors.partials import ExactSum
+from bitprism.tensors.scan import ScanResult, scan
+
+WITH_INF = ("bfloat16", "float16", "float8_e5m2")  # IEEE-style: overflow -> Inf
+NAN_ONLY = ("float8_e4m3fn",)  # no Inf: overflow -> NaN (OCP OFP8 rev 1.0, E4M3 "N/A" Inf)
+FINITE = ("float6_e3m2fn", "float4_e2m1fn")  # no Inf, no NaN (OCP MX v1.0 Tables 4-5)
+ALL = WITH_INF + NAN_ONLY + FINITE
+
+
+def dtype_of(name: str) -> np.dtype:
+    return np.dtype(np.float16) if name == "float16" else np.dtype(getattr(ml_dtypes, name))
+
+
+def wide_data(n: int = 20000, seed: int = 0, dtype=np.float32) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    x = (rng.standard_normal(n) * np.exp2(rng.uniform(-36, 36, n))).astype(dtype)
+    x[::97] = np.nan
+    x[1::101] = np.inf
+    x[2::103] = -np.inf
+    x[3::53] = 0.0
+    x[4::59] = -0.0
+    return x
+
+
+def cast_ref(x: np.ndarray, name: str) -> np.ndarray:
+    """ml_dtypes (the reference for these formats) cast, back to float64."""
+    with np.errstate(all="ignore"):
+        return np.asarray(x).astype(dtype_of(name)).astype(np.float64)
+
+
+def rel_ref(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Relative errors of the elements with finite input and finite result (and their mask)."""
+    x = np.asarray(x, np.float64)
+    both = np.isfinite(x) & np.isfinite(y)
+    xf, yf = x[both], y[both]
+    err = np.abs(yf - xf)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rel = np.where(xf == 0, 0.0, err / np.abs(xf))
+    return rel, both
+
+
+def ulp_ref(q: np.ndarray, name: str) -> np.ndarray:
+    """Handbook ULP at q: 2^(max(floor(log2|q|), emin) - t); written from ml_dtypes.finfo."""
+    fi = ml_dtypes.finfo(dtype_of(name))
+    emin = int(np.log2(float(fi.smallest_normal)))
+    t = int(fi.nmant)
+    _, e = np.frexp(np.abs(q))
+    ex = np.where(q == 0, emin, np.maximum(e - 1, emin))
+    return np.ldexp(1.0, (ex - t).astype(np.int32))
+
+
+# ----- counts, errors and quantiles against ml_dtypes and numpy -------------------------------
+
+
+@pytest.mark.parametrize("name", ALL)
+def test_full_scan_matches_ml_dtypes_and_numpy(name: str) -> None:
+    x = wide_data()
+    res = scan(x, [name], progress=False)
+    f = res[name]
+    y = cast_ref(x, name)
+    finite_in = np.isfinite(x)
+    assert (f.nan, f.inf) == (int(np.isnan(x).sum()), int(np.isinf(x).sum()))
+    if name in FINITE:
+        # no Inf/NaN to overflow to: every |x| that rounds above the largest finite value
+        # saturates. FP6 E3M2 max 28 = 1.75*2^4, FP4 E2M1 max 6 = 1.5*2^2 (OCP MX v1.0 Tables
+        # 4-5); the next value of the unbounded binade is 32 / 8, the tie point 30 / 7 goes to
+        # it (the max significand is odd), so overflow is |x| >= 30 / 7.
+        tie = {"float6_e3m2fn": 30.0, "float4_e2m1fn": 7.0}[name]
+        assert f.overflow == int((finite_in & (np.abs(x) >= tie)).sum())
+    else:
+        assert f.overflow == int((finite_in & ~np.isfinite(y)).sum())
+    assert f.underflow == int((finite_in & (x != 0) & (y == 0)).sum())
+    fi = ml_dtypes.finfo(dtype_of(name))
+    assert f.subnormal == int((finite_in & (y != 0) & (np.abs(y) < float(fi.smallest_normal))).sum())
+    assert f.exact == int((finite_in & (y == x.astype(np.float64))).sum())
+    rel, both = rel_ref(x, y)
+    assert f.compared == int(both.sum())
+    p50, p99 = np.quantile(rel, [0.5, 0.99], method="linear")
+    assert (f.rel_error_p50, f.rel_error_p99) == (p50, p99)
+    assert f.rel_error_max == rel.max()
+    xf = x.astype(np.float64)[both]
+    err = np.abs(y[both] - xf)
+    assert f.max_abs_error == err.max()
+    ue = err / ulp_ref(y[both], name)
+    assert f.ulp_error_max == ue.max()
+    assert f.ulp_error_mean == pytest.approx(ue.mean(), rel=1e-12)
+    expected_sqnr = 10 * math.log10(np.sum(xf**2) / np.sum(err**2))
+    assert f.sqnr_db == pytest.approx(expected_sqnr, rel=1e-12)
+    assert res.size == x.size and res.shape == x.shape and res.dtype == "float32"
+
+
+def test_histogram_quantiles_are_close_to_exact() -> None:
+    x = wide_data(seed=3)
+    ex = scan(x, ALL, progress=False)
+    hi = scan(x, ALL, progress=False, quantiles="histogram")
+    for a, b in zip(ex.formats, hi.formats):
+        assert (a.overflow, a.underflow, a.subnormal, a.exact) == (b.overflow, b.underflow, b.subnormal, b.exact)
+        for u, v in ((a.rel_error_p50, b.rel_error_p50), (a.rel_error_p99, b.rel_error_p99)):
+            assert v == pytest.approx(u, rel=2**-7)  # buckets are 2^-7 wide (scan docstring)
+
+
+def test_exact_two_pass_equals_numpy(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Small blocks and a small keep limit force the histogram + second-pass path."""
+    monkeypatch.setattr(scan_mod, "BLOCK", 4096)
+    monkeypatch.setattr(scan_mod, "_SUB", 1024)
+    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 1000)
+    monkeypatch.setattr(scan_mod, "_CAP", 8)  # refine through sub-range counts, then values
+    rng = np.random.default_rng(5)
+    x = rng.standard_normal(30000).astype(np.float32) * 100
+    x[::31] = rng.standard_normal(x[::31].size) * 1e-6  # some underflow and subnormals
+    tiny = (x * 1e-3).astype(np.float32)  # mostly flushed to zero in FP4: p50 is exactly 1
+    for data in (x, tiny):
+        for name in ("bfloat16", "float16", "float8_e4m3fn", "float4_e2m1fn"):
+            f = scan(data, [name], progress=False)[name]
+            rel, _ = rel_ref(data, cast_ref(data, name))
+            assert (f.rel_error_p50, f.rel_error_p99) == tuple(np.quantile(rel, [0.5, 0.99]))
+    assert scan(tiny, ["float4_e2m1fn"], progress=False)["float4_e2m1fn"].rel_error_p50 == 1.0
+
+
+# ----- published thresholds -----------------------------------------------------------------
+
+
+def test_thresholds_match_published_values() -> None:
+    res = scan(np.zeros(1, np.float32), ALL, progress=False, quantiles=False)
+    # IEEE 754-2008 §4.3.1: binary16 overflows from 2^15*(2 - 2^-11) = 65520 (to nearest).
+    assert res["float16"].overflow_from == 65520.0
+    # bfloat16 (p = 8): 2^127*(2 - 2^-8), float32 bits 0x7F7F8000 (reference-values §1.2).
+    assert res["bfloat16"].overflow_from == 2.0**127 * (2 - 2.0**-8)
+    # OFP8 rev 1.0 / FP8 paper Table 1: E4M3 max 448; 464 ties to 448 (even), above overflows.
+    assert res["float8_e4m3fn"].overflow_from == np.nextafter(464.0, np.inf)
+    # E5M2 max 57344; the tie 61440 goes to the odd-significand side's next value, Inf.
+    assert res["float8_e5m2"].overflow_from == 61440.0
+    # binary16 smallest subnormal 2^-24; the tie 2^-25 rounds to 0, so anything above survives.
+    assert res["float16"].underflow_below == np.nextafter(2.0**-25, np.inf)
+    # binary16 smallest normal 2^-14: reached from 2^-14 - 2^-25 (a tie, rounding up to even).
+    assert res["float16"].normal_from == 2.0**-14 - 2.0**-25
+    # E4M3 smallest subnormal 2^-9 (OFP8 rev 1.0): the tie 2^-10 goes to 0.
+    assert res["float8_e4m3fn"].underflow_below == np.nextafter(2.0**-10, np.inf)
+
+
+def test_fp16_boundaries_one_element_each() -> None:
+    # IEEE 754-2008 §4.3.1 threshold and the subnormal-boundary ties of reference-values §1.4.
+    x = np.array([65519.99, 65520.0, 2.0**-25, 3 * 2.0**-26, 2.0**-24, 1.0], np.float64)
+    f = scan(x, ["float16"], progress=False)["float16"]
+    assert f.overflow == 1  # 65520 only
+    assert f.underflow == 1  # 2^-25 (tie to 0)
+    assert f.subnormal == 2  # 3*2^-26 -> 2^-24, and 2^-24 itself
+    assert f.exact == 2  # 2^-24 and 1.0
+
+
+def test_ulp_error_against_fractions() -> None:
+    # float32(1/3) = 11184811/2^25 (reference-values §1.4) -> binary16 1365/4096, whose ULP is
+    # 2^-12 (binade [1/4, 1/2), t = 10); error in ULPs computed exactly with Fraction.
+    x = np.array([np.float32(1 / 3)])
+    f = scan(x, ["float16"], progress=False)["float16"]
+    exact_x = Fraction(11184811, 2**25)
+    assert Fraction(float(x[0])) == exact_x
+    q = Fraction(1365, 4096)
+    assert f.ulp_error_max == float(abs(q - exact_x) / Fraction(1, 2**12))
+    assert f.max_abs_error == float(abs(q - exact_x))
+    # float32(0.1) = 13421773/2^27 -> E4M3: 0.1015625 = 13/128, ULP 2^-7 (binade [1/16, 1/8)).
+    x2 = np.array([np.float32(0.1)])
+    g = scan(x2, ["float8_e4m3fn"], progress=False)["float8_e4m3fn"]
+    ex2 = Fraction(13421773, 2**27)
+    assert g.ulp_error_max == float(abs(Fraction(13, 128) - ex2) / Fraction(1, 2**7))
+
+
+# ----- counts-only scan agrees with the full scan ----------------------------------------------
+
+OPTION_SETS = [
+    (r, o, s)
+    for r in ("roundTiesToEven", "roundTiesToAway", "roundTowardZero", "roundTowardPositive", "roundTowardNegative")
+    for o in ("standard", "saturate")
+    for s in ("keep", "flush")
+]
+
+
+@pytest.mark.parametrize("rounding,overflow,subnormals", OPTION_SETS)
+def test_counts_only_agrees_with_full_scan(rounding: str, overflow: str, subnormals: str) -> None:
+    x = wide_data(6000, seed=11)
+    fmts = ALL + ("float8_e4m3fnuz", "float8_e5m3fnu", "float8_e8m0fnu", "float8_e3m4")
+    kw = dict(rounding=rounding, overflow=overflow, subnormals=subnormals, progress=False)
+    full = scan(x, fmts, quantiles="histogram", **kw)
+    fast = scan(x, fmts, quantiles=False, **kw)
+    for a, b in zip(full.formats, fast.formats):
+        assert (a.overflow, a.underflow, a.subnormal, a.invalid) == (
+            b.overflow, b.underflow, b.subnormal, b.invalid
+        ), a.format
+        for kind in ("overflow", "underflow", "subnormal"):
+            assert np.array_equal(full.where(kind, a.format)[0], fast.where(kind, a.format)[0])
+    assert fast.formats[0].exact is None and fast.formats[0].rel_error_p50 is None
+
+
+def test_counts_only_refuses_stochastic() -> None:
+    with pytest.raises(BitprismError, match="deterministic"):
+        scan(np.ones(3), ["float16"], rounding="stochastic", quantiles=False)
+
+
+def test_unsigned_format_counts_negatives_as_invalid() -> None:
+    x = np.array([-1.0, -0.0, 2.0, -np.inf, 3.0], np.float32)
+    f = scan(x, ["float8_e5m3fnu"], progress=False)["float8_e5m3fnu"]
+    assert f.invalid == 1  # -1.0 only (-0 becomes +0, -Inf is an input Inf)
+    assert f.compared == 3
+
+
+# ----- merging partial results -----------------------------------------------------------------
+
+
+def _spec(fmts, mode="histogram", limit=5, keep=True):
+    opts = CastOptions()
+    entries = scan_mod._resolve_entries(fmts, opts)
+    return scan_mod._Spec(entries, opts, None, mode, limit, keep, True, None)
+
+
+def _same(a, b) -> None:
+    ia, ib = a.input, b.input
+    for field in ("n", "nan", "pos_inf", "neg_inf", "zero", "carrier_subnormal", "min", "max"):
+        assert getattr(ia, field) == getattr(ib, field), field
+    assert np.array_equal(ia.exponents, ib.exponents)
+    assert np.array_equal(ia.where_nan, ib.where_nan) and np.array_equal(ia.where_inf, ib.where_inf)
+    for fa, fb in zip(a.formats, b.formats):
+        for field in ("overflow", "underflow", "subnormal", "invalid", "exact", "compared",
+                      "max_abs", "max_rel", "max_ulp"):
+            assert getattr(fa, field) == getattr(fb, field), field
+        for field in ("rel_hist", "rel_values", "where_overflow", "where_underflow",
+                      "where_subnormal", "top_err", "top_idx"):
+            assert np.array_equal(getattr(fa, field), getattr(fb, field)), field
+        for field in ("sum_x2", "sum_err2", "sum_ulp"):  # block sums: equal to float rounding
+            assert getattr(fa, field).value() == pytest.approx(getattr(fb, field).value(), rel=1e-12)
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    cuts=st.lists(st.integers(1, 2999), max_size=6, unique=True),
+    order=st.randoms(use_true_random=False),
+)
+def test_merge_of_random_splits_equals_whole(cuts: list[int], order) -> None:
+    x = wide_data(3000, seed=7)
+    spec = _spec(("float16", "float8_e4m3fn", "float4_e2m1fn"))
+    whole = scan_mod._scan_block(x, scan_mod._Locator(0), spec, scan_mod._SUB)
+    bounds = [0] + sorted(cuts) + [x.size]
+    parts = [
+        scan_mod._scan_block(x[s:e], scan_mod._Locator(s), spec, scan_mod._SUB)
+        for s, e in zip(bounds, bounds[1:])
+    ]
+    order.shuffle(parts)  # merges are commutative and associative
+    merged = parts[0]
+    for p in parts[1:]:
+        merged = p.merge(merged) if order.random() < 0.5 else merged.merge(p)
+    _same(merged, whole)
+
+
+def test_exact_sum_is_exact_and_associative() -> None:
+    vals = [1e300, 1.0, -1e300, 2.0**-1074, 3.5]
+    total = ExactSum()
+    for v in vals:
+        total = total + ExactSum.of(v)
+    assert total.value() == float(sum(Fraction(v) for v in vals))
+    assert (ExactSum.of(1.0) + ExactSum.of(math.inf)).value() == math.inf
+
+
+# ----- input kinds -----------------------------------------------------------------------------
+
+
+def test_memmap_is_read_in_blocks(tmp_path, monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setattr(scan_mod, "BLOCK", 5000)
+    x = wide_data(23456, seed=2).reshape(-1, 32)[:733]
+    path = tmp_path / "t.npy"
+    np.save(path, x)
+    mm = np.load(path, mmap_mode="r")
+    a = scan(mm, ALL, progress=False)
+    b = scan(np.array(x), ALL, progress=False)
+    assert a.formats == b.formats and a.histogram == b.histogram
+    for kind in ("nan", "inf"):
+        assert all(np.array_equal(u, v) for u, v in zip(a.where(kind), b.where(kind)))
+
+
+def test_multiblock_equals_single_block(monkeypatch: pytest.MonkeyPatch) -> None:
+    x = wide_data(20000, seed=4).reshape(100, 200)
+    one = scan(x, ALL, progress=False, quantiles="histogram")
+    monkeypatch.setattr(scan_mod, "BLOCK", 3000)
+    monkeypatch.setattr(scan_mod, "_SUB", 512)
+    many = scan(x, ALL, progress=False, quantiles="histogram")
+    for a, b in zip(one.formats, many.formats):
+        assert (a.overflow, a.underflow, a.subnormal, a.exact, a.max_abs_error, a.rel_error_p50) == (
+            b.overflow, b.underflow, b.subnormal, b.exact, b.max_abs_error, b.rel_error_p50
+        )
+        assert a.sqnr_db == pytest.approx(b.sqnr_db, rel=1e-12)
+        w1, w2 = one.where("largest_error", a.format), many.where("largest_error", a.format)
+        assert all(np.array_equal(u, v) for u, v in zip(w1, w2))
+
+
+def test_non_contiguous_input() -> None:
+    x = wide_data(6000, seed=8).reshape(60, 100)
+    a = scan(x.T, ("float16",), progress=False)
+    b = scan(np.ascontiguousarray(x.T), ("float16",), progress=False)
+    assert a.formats == b.formats
+    assert all(np.array_equal(u, v) for u, v in zip(a.where("overflow", "float16"), b.where("overflow", "float16")))
+
+
+@pytest.mark.parametrize("src", ["float16", "bfloat16", "float8_e5m2", "float64"])
+def test_every_float_input_dtype(src: str) -> None:
+    dt = np.dtype(np.float64) if src == "float64" else dtype_of(src)
+    with np.errstate(over="ignore"):  # the wide data overflows the narrow input dtypes
+        x = wide_data(4000, seed=9).astype(dt)
+    res = scan(x, ("float8_e4m3fn", "float16"), progress=False)
+    for name in ("float8_e4m3fn", "float16"):
+        # every one of these inputs is exact in float32, so one cast from float32 is a single
+        # rounding from the exact input
+        y = cast_ref(x.astype(np.float32) if src != "float64" else x, name)
+        xf = x.astype(np.float64)
+        f = res[name]
+        assert f.underflow == int((np.isfinite(xf) & (xf != 0) & (y == 0)).sum())
+        rel, _ = rel_ref(xf, y)
+        assert f.rel_error_p99 == np.quantile(rel, 0.99)
+    assert res.dtype == str(dt)
+
+
+def test_integers_are_exact_inputs() -> None:
+    x = np.arange(-70000, 70000, 7, dtype=np.int32)
+    f = scan(x, ["float16"], progress=False)["float16"]
+    y = cast_ref(x.astype(np.float64), "float16")
+    assert f.overflow == int(np.isinf(y).sum())
+    assert f.exact == int((y == x).sum())
+    assert scan(x, ["float16"], progress=False).histogram.subnormal == 0
+
+
+def test_input_histogram_and_extrema() -> None:
+    x = np.array([0.0, -0.0, 1.0, 1.5, -3.0, 2.0**-130, np.nan, np.inf, 1024.0], np.float32)
+    res = scan(x, ["bfloat16"], progress=False)
+    h = res.histogram
+    assert (h.zero, h.subnormal, h.inf, h.nan) == (2, 1, 1, 1)  # 2^-130 is a float32 subnormal
+    assert dict(zip(h.exponents, h.counts)) == {0: 2, 1: 1, 10: 1}
+    assert h.total == x.size
+    assert (res.min, res.max, res.absmax) == (-3.0, math.inf, math.inf)
+    # float16 input: values below its smallest normal 2^-14 are its subnormals
+    y = np.array([2.0**-20, 2.0**-14, 1.0], np.float16)
+    hy = scan(y, ["float8_e5m2"], progress=False).histogram
+    assert hy.subnormal == 1 and hy.exponents == (-14, 0)
+
+
+def test_empty_zero_d_and_nan_only() -> None:
+    e = scan(np.zeros((0, 4), np.float32), progress=False)
+    assert e.size == 0 and e.min is None and e.formats[0].compared == 0
+    assert e.formats[0].rel_error_p50 is None and e.formats[0].sqnr_db is None
+    assert e.where("nan")[0].size == 0 and e.shape == (0, 4)
+    z = scan(np.float32(70000.0), ["float16"], progress=False)
+    assert z.shape == () and z.size == 1 and z["float16"].overflow == 1
+    n = scan(np.full((3, 3), np.nan), ["float16", "float4_e2m1fn"], progress=False)
+    for f in n.formats:
+        assert (f.nan, f.compared, f.overflow, f.underflow, f.exact) == (9, 0, 0, 0, 0)
+    assert n.min is None and n.absmax is None
+    assert len(n.where("nan")[0]) == 9
+
+
+def test_scale_multiplies_before_the_cast() -> None:
+    x = wide_data(5000, seed=12)
+    s = 2.0**-12
+    res = scan(x, ("float8_e4m3fn",), scale=s, progress=False)
+    xs = x.astype(np.float64) * s
+    y = cast_ref(xs, "float8_e4m3fn")
+    f = res["float8_e4m3fn"]
+    assert res.scale == s
+    assert f.overflow == int((np.isfinite(xs) & ~np.isfinite(y)).sum())
+    rel, _ = rel_ref(xs, y)
+    assert f.rel_error_p50 == np.quantile(rel, 0.5)
+    assert "scale=" in res.to_text()
+
+
+def test_stochastic_rounding_is_seeded() -> None:
+    x = np.random.default_rng(1).standard_normal(3000)
+    a = scan(x, ["float8_e5m2"], rounding="stochastic", seed=3, progress=False)
+    b = scan(x, ["float8_e5m2"], rounding="stochastic", seed=3, progress=False)
+    assert a.formats == b.formats
+    rne = scan(x, ["float8_e5m2"], progress=False)
+    assert a["float8_e5m2"].rel_error_max >= rne["float8_e5m2"].rel_error_max
+
+
+def test_bad_arguments() -> None:
+    with pytest.raises(BitprismError, match="quantiles"):
+        scan(np.ones(2), quantiles="median")
+    with pytest.raises(BitprismError, match="scale"):
+        scan(np.ones(2), scale=0.0)
+    with pytest.raises(BitprismError, match="unknown format"):
+        scan(np.ones(2), ["float7"])
+    with pytest.raises(BitprismError, match="kind"):
+        scan(np.ones(2), ["float16"]).where("big")
+
+
+# ----- where() ---------------------------------------------------------------------------------
+
+
+def test_where_points_at_the_right_elements() -> None:
+    x = wide_data(8000, seed=13).reshape(40, 200)
+    res = scan(x, ("float16", "float8_e4m3fn"), progress=False, where_limit=7)
+    nan_idx = res.where("nan")
+    assert len(nan_idx) == 2 and np.isnan(x[nan_idx]).all()
+    assert np.array_equal(np.ravel_multi_index(nan_idx, x.shape), np.flatnonzero(np.isnan(x))[:7])
+    assert np.isinf(x[res.where("inf")]).all()
+    for name in ("float16", "float8_e4m3fn"):
+        y = cast_ref(x, name).reshape(x.shape)
+        ov = res.where("overflow", name)
+        assert np.isfinite(x[ov]).all() and not np.isfinite(y[ov]).any()
+        expect = np.flatnonzero(np.isfinite(x) & ~np.isfinite(y))[:7]
+        assert np.array_equal(np.ravel_multi_index(ov, x.shape), expect)
+        un = res.where("underflow", name)
+        assert (y[un] == 0).all() and (x[un] != 0).all()
+        sb = res.where("subnormal", name)
+        assert (np.abs(y[sb]) < float(ml_dtypes.finfo(dtype_of(name)).smallest_normal)).all()
+        # largest absolute errors, largest first, among finite results
+        le = res.where("largest_error", name)
+        with np.errstate(invalid="ignore"):  # Inf - Inf at input Infs, masked just below
+            err = np.abs(y - x.astype(np.float64))
+        err[~(np.isfinite(x) & np.isfinite(y))] = -1
+        top = np.sort(err.reshape(-1))[::-1][:7]
+        assert np.array_equal(err[le], top)
+        assert res[name].max_abs_error == top[0]
+
+
+# ----- dask --------------------------------------------------------------------------------------
+
+
+def test_dask_local_schedulers() -> None:
+    da = pytest.importorskip("dask.array")
+    import dask
+
+    x = wide_data(9000, seed=14).reshape(90, 100)
+    ref = scan(x, ALL, progress=False)
+    d = da.from_array(x, chunks=(17, 33))
+    for scheduler in ("synchronous", "threads"):
+        with dask.config.set(scheduler=scheduler):
+            got = scan(d, ALL, progress=False)
+        assert [(f.overflow, f.underflow, f.subnormal, f.exact, f.rel_error_p50, f.rel_error_p99,
+                 f.max_abs_error) for f in got.formats] == [
+            (f.overflow, f.underflow, f.subnormal, f.exact, f.rel_error_p50, f.rel_error_p99,
+             f.max_abs_error) for f in ref.formats]
+        assert got.histogram == ref.histogram
+        for name in ALL:
+            for kind in ("overflow", "underflow", "largest_error"):
+                assert all(np.array_equal(u, v) for u, v in zip(got.where(kind, name), ref.where(kind, name)))
+
+
+def test_dask_two_pass_exact(monkeypatch: pytest.MonkeyPatch) -> None:
+    da = pytest.importorskip("dask.array")
+    import dask
+
+    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 100)
+    monkeypatch.setattr(scan_mod, "_CAP", 8)
+    x = np.random.default_rng(15).standard_normal(5000).astype(np.float32)
+    with dask.config.set(scheduler="synchronous"):
+        f = scan(da.from_array(x, chunks=700), ["float8_e5m2"], progress=False)["float8_e5m2"]
+    rel, _ = rel_ref(x, cast_ref(x, "float8_e5m2"))
+    assert (f.rel_error_p50, f.rel_error_p99) == tuple(np.quantile(rel, [0.5, 0.99]))
+
+
+def test_dask_distributed_local_cluster() -> None:
+    distributed = pytest.importorskip("distributed")
+    da = pytest.importorskip("dask.array")
+
+    x = wide_data(4000, seed=16).reshape(40, 100)
+    ref = scan(x, ("float16", "float8_e4m3fn"), progress=False)
+    with distributed.LocalCluster(
+        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
+    ) as cluster, distributed.Client(cluster):
+        got = scan(da.from_array(x, chunks=(10, 50)), ("float16", "float8_e4m3fn"), progress=False)
+    assert got.formats == ref.formats
+
+
+# ----- block-format entries (the scan-format protocol) -----------------------------------------
+
+
+class _PowerOfTwoBlocks:
+    """A toy block format: each block of 8 shares a power-of-two step 2^(floor(log2 max)-2)."""
+
+    name = "toy8"
+    block_size = 8
+
+    def __init__(self) -> None:
+        self.lengths: list[int] = []
+
+    def dequantize_block(self, x: np.ndarray) -> np.ndarray:
+        self.lengths.append(x.size)
+        assert x.dtype == np.float64 and x.ndim == 1 and x.size % 8 == 0
+        b = x.reshape(-1, 8)
+        m = np.max(np.abs(b), axis=1, keepdims=True)
+        with np.errstate(divide="ignore"):
+            step = np.where(m > 0, np.exp2(np.floor(np.log2(np.where(m > 0, m, 1))) - 2), 1.0)
+        return (np.round(b / step) * step).reshape(-1)
+
+
+def test_block_format_hook_with_padding() -> None:
+    hook = _PowerOfTwoBlocks()
+    x = np.random.default_rng(17).standard_normal((13, 21)) * 10  # rows of 21: padded to 24
+    x[0, 0] = 1e-9
+    f = scan(x, [hook, "float16"], progress=False)["toy8"]
+    assert all(n % 8 == 0 for n in hook.lengths)
+    padded = np.zeros((13, 24))
+    padded[:, :21] = x
+    y = _PowerOfTwoBlocks().dequantize_block(padded.reshape(-1)).reshape(13, 24)[:, :21]
+    assert f.underflow == int(((y == 0) & (x != 0)).sum())
+    assert f.exact == int((y == x).sum())
+    rel, _ = rel_ref(x.reshape(-1), y.reshape(-1))
+    assert f.rel_error_p50 == np.quantile(rel, 0.5)
+    assert f.subnormal is None and f.ulp_error_mean is None
+    g = scan(x, [_PowerOfTwoBlocks()], progress=False, quantiles=False)["toy8"]
+    assert (g.underflow, g.overflow, g.exact) == (f.underflow, f.overflow, None)
+
+
+def test_mx_formats_from_the_mx_module() -> None:
+    mx = pytest.importorskip("bitprism.tensors.mx")
+    fmt = mx.get_mx_format("mxfp4")
+    x = np.random.default_rng(18).standard_normal((4, 64))
+    f = scan(x, [fmt], progress=False)[fmt.name]
+    y = mx.mx_quantize(x, fmt).values
+    rel, _ = rel_ref(x.reshape(-1), np.asarray(y).reshape(-1))
+    assert f.rel_error_p99 == np.quantile(rel, 0.99)
+
+
+# ----- presentation and layering ---------------------------------------------------------------
+
+
+def test_text_and_html_repr() -> None:
+    x = wide_data(2000, seed=19)
+    res = scan(x, ("float16", "float8_e4m3fn"), progress=False)
+    assert isinstance(res, ScanResult)
+    bundle = res._repr_mimebundle_()
+    assert set(bundle) == {"text/plain", "text/html"}
+    text = bundle["text/plain"]
+    assert "float8_e4m3fn" in text and "overflow" in text and "float32 [2000]" in text
+    html = bundle["text/html"]
+    assert "<script" not in html and "float8_e4m3fn" in html
+    assert f"{res['float16'].overflow:,}" in html
+
+
+def test_html_escapes_names() -> None:
+    class Evil(_PowerOfTwoBlocks):
+        name = "<b>x</b>"
+
+    html = scan(np.ones(8), [Evil()], progress=False).to_html()
+    assert "<b>x</b>" not in html and "&lt;b&gt;x&lt;/b&gt;" in html
+
+
+def test_progress_bar_on_large_input(monkeypatch: pytest.MonkeyPatch, capsys) -> None:
+    monkeypatch.setattr(scan_mod, "PROGRESS_MIN", 100)
+    monkeypatch.setattr(scan_mod, "BLOCK", 256)
+    scan(np.ones(1000, np.float32), ["float16"], progress=True)
+    assert "scan" in capsys.readouterr().err
+
+
+def test_importing_scan_loads_no_plotting_or_dask() -> None:
+    code = (
+        "import sys, bitprism.tensors.scan, bitprism.plots;"
+        "bad = [m for m in ('matplotlib', 'dask', 'distributed', 'tqdm', 'IPython', 'ipywidgets') if m in sys.modules];"
+        "print(bad); sys.exit(1 if bad else 0)"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert done.returncode == 0, done.stdout + done.stderr
+
+
+def test_format_entry_accepts_aliases_and_dtypes() -> None:
+    res = scan(np.ones(4, np.float32), ["fp16", ml_dtypes.bfloat16], progress=False)
+    assert res.format_names == ("float16", "bfloat16")
+    assert res["fp16"] is res["float16"]
+    assert get_format("fp16").name == "float16"

@@ -1,0 +1,7 @@
+"""Plots: matplotlib figures of scan results. matplotlib is imported only when one is drawn."""
+
+from __future__ import annotations
+
+from .range_chart import range_chart
+
+__all__ = ["range_chart"]

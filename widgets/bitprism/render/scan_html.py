@@ -1,0 +1,76 @@
+"""Static HTML for a ``ScanResult``: escaped text, inline CSS, no scripts.
+
+Colours come from ``render.palette`` (bitprism's class badges: NaN magenta, Inf deep red,
+subnormal lilac, zero grey); overflow counts wear the Inf badge and underflow counts the zero
+badge. Badges carry their numbers and the column says the word, so colour is never the only
+cue."""
+
+from __future__ import annotations
+
+from html import escape
+from typing import Any
+
+from .palette import badge_style
+from .scan_text import COLUMNS, fmt_count, header_lines, scan_rows
+
+__all__ = ["scan_html"]
+
+# table column -> palette badge
+_ROLE = {"overflow": "inf", "underflow": "zero", "subnormal": "subnormal", "nan": "nan",
+         "inf": "inf", "zero": "zero"}
+
+_BOX = (
+    "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:12px;"
+    "color:#1f2328;background:#ffffff;border:1px solid #d0d7de;border-radius:6px;"
+    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto"
+)
+_TH = "text-align:right;padding:2px 8px;border-bottom:1px solid #d0d7de;font-weight:600"
+_TD = "text-align:right;padding:2px 8px;white-space:nowrap"
+
+
+def _badge(kind: str, text: str) -> str:
+    return f'<span style="{badge_style(_ROLE[kind])}">{escape(text)}</span>'
+
+
+def _cell(kind: str | None, text: str, nonzero: bool) -> str:
+    body = _badge(kind, text) if kind and nonzero else escape(text)
+    return f'<td style="{_TD}">{body}</td>'
+
+
+def scan_html(result: Any) -> str:
+    """The result as a self-contained HTML fragment."""
+    head = header_lines(result)
+    h = result.histogram
+    badges = " ".join(
+        _badge(kind, f"{label} {fmt_count(n, result.size)}")
+        for kind, label, n in (("nan", "NaN", h.nan), ("inf", "Inf", h.inf),
+                               ("zero", "zero", h.zero), ("subnormal", "subnormal", h.subnormal))
+        if n
+    )
+    parts = [f'<div class="bitprism-scan" style="{_BOX}">']
+    parts.append(f'<div style="font-weight:600">{escape(head[0])}</div>')
+    for line in head[1:]:
+        if line.lstrip().startswith("NaN "):
+            if badges:
+                parts.append(f'<div style="margin:2px 0">{badges}</div>')
+            continue
+        parts.append(f"<div>{escape(line.strip())}</div>")
+    parts.append('<table style="border-collapse:collapse;margin-top:6px">')
+    parts.append(
+        "<thead><tr>"
+        + "".join(
+            f'<th style="{_TH}{";text-align:left" if i == 0 else ""}">{escape(c)}</th>'
+            for i, c in enumerate(COLUMNS)
+        )
+        + "</tr></thead><tbody>"
+    )
+    kinds = (None, "overflow", "underflow", "subnormal", None)
+    for f, row in zip(result.formats, scan_rows(result)):
+        counts = (None, f.overflow, f.underflow, f.subnormal, f.exact)
+        cells = [f'<td style="{_TD};text-align:left;font-weight:600">{escape(row[0])}</td>']
+        for i, text in enumerate(row[1:], start=1):
+            kind = kinds[i] if i < len(kinds) else None
+            cells.append(_cell(kind, text, bool(counts[i]) if i < len(counts) else False))
+        parts.append("<tr>" + "".join(cells) + "</tr>")
+    parts.append("</tbody></table></div>")
+    return "".join(parts)
