@@ -948,6 +948,10 @@ def _resolve_entries(formats: Any, options: CastOptions) -> tuple[_Entry, ...]:
         formats = (formats,)
     entries: list[_Entry] = []
     for spec in formats:
+        if isinstance(spec, str) and spec.strip().lower().replace("-", "_") in _mx_names():
+            from .mx import get_mx_format
+
+            spec = get_mx_format(spec)  # the OCP MX block formats by name ("mxfp4", ...)
         if not isinstance(spec, (str, Format, np.dtype, type)) and callable(
             getattr(spec, "dequantize_block", None)
         ):
@@ -969,6 +973,12 @@ def _resolve_entries(formats: Any, options: CastOptions) -> tuple[_Entry, ...]:
     if not entries:
         raise BitprismError("formats must name at least one format")
     return tuple(entries)
+
+
+def _mx_names() -> frozenset[str]:
+    from .mx import MX_FORMATS
+
+    return frozenset(MX_FORMATS)
 
 
 def _as_input(data: Any) -> Any:
