@@ -364,7 +364,7 @@ def _builtin(
         name,
         w,
         t,
-        bias,
+        bias,  # type: ignore[arg-type]  # None asks for the IEEE default
         specials,
         signed,
         has_zero,

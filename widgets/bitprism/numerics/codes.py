@@ -137,7 +137,7 @@ def _encode_array(
             encode_table(block.view(np.uint32), fmt, options, flat_out[start : start + _BLOCK], progress)
         return out
     if arr.dtype == kernel_dtype:
-        bits = flat_in.view(src.uint)
+        bits: np.ndarray = flat_in.view(src.uint)
         encode_bits(bits, src, fmt, options, flat_out, rng, progress)
         return out
     for start in range(0, flat_in.size, _BLOCK):

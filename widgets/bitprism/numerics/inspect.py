@@ -13,6 +13,7 @@ import numpy as np
 
 from ..formats import Format, FormatLike, get_format
 from .codes import _check_codes, decode, encode, is_scalar_input
+from .options import Rounding
 
 __all__ = [
     "CodeClass",
@@ -164,7 +165,7 @@ def _step(x: Any, fmt: FormatLike, up: bool) -> Any:
     f = get_format(fmt)
     arr, scalar = _values(x)
     # the representable value on the far side of x (<= x for next_up, >= x for next_down)
-    mode = "roundTowardNegative" if up else "roundTowardPositive"
+    mode: Rounding = "roundTowardNegative" if up else "roundTowardPositive"
     codes = encode(arr, f, mode, overflow="saturate")
     v = decode(codes, f)
     r = rank(codes, f) + (1 if up else -1)

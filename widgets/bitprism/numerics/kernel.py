@@ -139,10 +139,10 @@ class _Scratch:
     """Reusable per-call buffers so a long cast allocates a fixed amount once."""
 
     def __init__(self, uint: type, n: int) -> None:
-        self.a = np.empty(n, uint)
-        self.b = np.empty(n, uint)
-        self.c = np.empty(n, uint)
-        self.s = np.empty(n, uint)
+        self.a: np.ndarray = np.empty(n, uint)
+        self.b: np.ndarray = np.empty(n, uint)
+        self.c: np.ndarray = np.empty(n, uint)
+        self.s: np.ndarray = np.empty(n, uint)
 
 
 def _random_bits(rng: np.random.Generator, n: int, uint: type) -> np.ndarray:
@@ -237,7 +237,8 @@ def _blend_low(
     bits: probabilities here are exact to 2^-24 (float32 data) or 2^-53 (float64 data)."""
     src, fmt, mode = plan.src, plan.fmt, plan.mode
     u = src.uint
-    fa, fb = a.view(src.float), b.view(src.float)
+    fa: np.ndarray = a.view(src.float)
+    fb: np.ndarray = b.view(src.float)
     # NaN patterns pass through this float arithmetic too (they are fixed up afterwards):
     # signaling NaNs must not raise the invalid flag into a warning
     with np.errstate(invalid="ignore", over="ignore"):
