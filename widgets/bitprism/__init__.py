@@ -77,7 +77,12 @@ __all__ = [
 
 # Names loaded on first access, so that `import bitprism` stays free of UI and plotting
 # libraries and of modules still being imported lazily by their own layer.
-_LAZY: dict[str, str] = {"Prism": ".ui.prism", "range_chart": ".plots"}
+_LAZY: dict[str, str] = {
+    "Prism": ".ui.prism",
+    "TensorPrism": ".ui.tensor_prism",
+    "open_case": ".ui.case_file",
+    "range_chart": ".plots",
+}
 
 
 def __getattr__(name: str) -> Any:

@@ -31,6 +31,8 @@ from ..render.compare_html import (
     header_html,
 )
 from ..render.palette import button_colors
+from . import prism_case
+from .case_file import CaseFileMixin
 
 __all__ = ["Prism"]
 
@@ -128,7 +130,7 @@ class _Band:
         self.implicit.description = "0" if kind in (0, 1) else ("1" if kind == 2 else "·")
 
 
-class Prism(W.VBox):
+class Prism(CaseFileMixin, W.VBox):
     """One value refracted into several formats: bit tiles, fields, stored value, errors.
 
     ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
@@ -352,6 +354,7 @@ class Prism(W.VBox):
         if fmts != self._band_formats:
             self._rebuild_bands(fmts)
         self._show(c)
+        self._snapshot_changed()
 
     def _rebuild_bands(self, fmts: list[Format]) -> None:
         self._bands = [_Band(self, f, i) for i, f in enumerate(fmts)]
@@ -542,3 +545,16 @@ class Prism(W.VBox):
     def to_html(self) -> str:
         """A static HTML snapshot of the current view (same markup as the bands)."""
         return self.comparison.to_html(aligned=self.aligned) if self.comparison else ""
+
+    # ----- case files (ui/case_file.py) ----------------------------------------------------------
+    _case_kind = "prism"
+
+    def _case_state(self) -> dict[str, Any]:
+        return prism_case.prism_case_state(self)
+
+    @classmethod
+    def _from_case_state(cls, state: dict[str, Any]) -> "Prism":
+        return prism_case.prism_from_case_state(cls, state)  # type: ignore[no-any-return]
+
+    def _static_html(self) -> str:
+        return prism_case.prism_static_html(self)

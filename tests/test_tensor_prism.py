@@ -1,0 +1,306 @@
+"""TensorPrism driven headless: set traits, click cells and buttons, read what it shows.
+
+Cast classes are checked against ml_dtypes' own cast computed in the test (the reference for
+the formats it has); planted NaNs sit at known indices."""
+
+from __future__ import annotations
+
+import json
+from fractions import Fraction
+
+import ml_dtypes
+import numpy as np
+import pytest
+
+from bitprism.errors import BitprismError
+from bitprism.numerics.parse import parse
+from bitprism.ui.tensor_prism import TensorPrism
+
+FMTS = ["bfloat16", "float8_e4m3fn"]
+
+
+def _tensor() -> np.ndarray:
+    # invented data: smooth values, plus planted specials at known places
+    i, j = np.meshgrid(np.arange(40), np.arange(50), indexing="ij")
+    a = (np.sin(i * 0.3) * 10 + j * 0.01).astype(np.float32)
+    a[2, 3] = np.nan
+    a[30, 45] = np.nan
+    a[30, 1] = np.nan
+    a[5, 5] = 1e6  # overflows float8_e4m3fn (largest finite 448, OCP OFP8 Table 1)
+    a[6, 6] = 1e-8  # underflows to zero in float8_e4m3fn (smallest subnormal 2^-9)
+    return a
+
+
+def _cell(tp: TensorPrism, i: int, j: int):
+    return tp._cells[i * tp.window.cols + j]
+
+
+def test_builds_grid_and_css_classes() -> None:
+    tp = TensorPrism(_tensor(), formats=FMTS)
+    assert "bitprism-tensorprism" in tp._dom_classes
+    assert "bitprism-grid" in tp.grid._dom_classes
+    assert "bitprism-summary" in tp.summary_html._dom_classes
+    assert "bitprism-message" in tp.message_html._dom_classes
+    assert "bitprism-goto" in tp.goto_input._dom_classes
+    for kind in ("nan", "inf", "overflow", "underflow", "largest-error"):
+        assert f"bitprism-next-{kind}" in tp.nav_buttons[f"next-{kind.replace('-', '_')}"]._dom_classes
+        assert f"bitprism-prev-{kind}" in tp.nav_buttons[f"prev-{kind.replace('-', '_')}"]._dom_classes
+    cells = tp._cells[: 16 * 16]
+    assert len(cells) == 256 and all("bitprism-cell" in c._dom_classes for c in cells)
+    assert "bitprism-scan" in tp.summary_html.value  # the scan's HTML
+    # every cell carries its exact value and bit pattern as text
+    value, bits = _cell(tp, 0, 1).tooltip.split(" = ")
+    assert float.fromhex(value) == float(_tensor()[0, 1])  # exact: hex float
+    assert int(bits, 16) == int(_tensor()[0, 1:2].view(np.uint32)[0])
+
+
+def test_cast_view_marks_cells_like_ml_dtypes() -> None:
+    a = _tensor()
+    tp = TensorPrism(a, formats=FMTS, format_a="float8_e4m3fn", rows=8, cols=8)
+    with np.errstate(over="ignore", invalid="ignore"):
+        q = a[:8, :8].astype(ml_dtypes.float8_e4m3fn).astype(np.float64)
+    x = a[:8, :8].astype(np.float64)
+    tiny = float(ml_dtypes.finfo(ml_dtypes.float8_e4m3fn).smallest_normal)
+    for i in range(8):
+        for j in range(8):
+            label = _cell(tp, i, j).description
+            if np.isnan(x[i, j]):
+                want = "NaN"
+            elif not np.isfinite(q[i, j]):
+                want = "OVF"
+            elif x[i, j] != 0 and q[i, j] == 0:
+                want = "→0"
+            elif 0 < abs(q[i, j]) < tiny:
+                want = "sub"
+            elif q[i, j] == x[i, j]:
+                want = "ex"
+            else:
+                want = "rnd"
+            assert label == want, (i, j, x[i, j], q[i, j], label)
+    assert _cell(tp, 5, 5).description == "OVF" and _cell(tp, 6, 6).description == "→0"
+    assert _cell(tp, 5, 5).style is tp._styles["overflow"]
+    assert "overflows" in tp.legend_html.value and "underflows to zero" in tp.legend_html.value
+
+
+def test_next_nan_row_major_wraps_and_counts() -> None:
+    tp = TensorPrism(_tensor(), formats=FMTS)
+    assert tp.nav_counts["nan"].value == "NaN: 3"
+    tp.nav_buttons["next-nan"].click()
+    assert tp.selected == (2, 3)
+    tp.nav_buttons["next-nan"].click()
+    assert tp.selected == (30, 1)  # row-major: (30, 1) before (30, 45)
+    assert tp.window.cell_of((30, 1)) is not None  # the window moved there
+    tp.nav_buttons["next-nan"].click()
+    assert tp.selected == (30, 45) and tp.window.cell_of((30, 45)) is not None
+    tp.nav_buttons["next-nan"].click()
+    assert tp.selected == (2, 3) and "wrapped" in tp.message
+    tp.nav_buttons["prev-nan"].click()
+    assert tp.selected == (30, 45)
+    sel = tp.window.cell_of((30, 45))
+    assert "bitprism-cell-selected" in _cell(tp, *sel)._dom_classes
+    assert tp.nav_counts["overflow"].value == "overflow in bfloat16: 0"
+    tp.format_a = "float8_e4m3fn"
+    assert tp.nav_counts["overflow"].value == "overflow in float8_e4m3fn: 1"
+    tp.nav_buttons["next-overflow"].click()
+    assert tp.selected == (5, 5)
+    assert tp.nav_counts["underflow"].value == "underflow in float8_e4m3fn: 1"
+    tp.nav_buttons["next-underflow"].click()
+    assert tp.selected == (6, 6)
+    tp.format_a = "bfloat16"
+    tp.nav_buttons["next-overflow"].click()
+    assert "no overflow cell in bfloat16" in tp.message
+    tp.nav_buttons["next-largest_error"].click()
+    assert "cells" in tp.nav_counts["largest_error"].value
+
+
+def test_selection_shows_exact_value_in_prism() -> None:
+    a = _tensor()
+    tp = TensorPrism(a, formats=FMTS)
+    seen = []
+    tp.observe(lambda ch: seen.append(ch["new"]), "selected")
+    _cell(tp, 3, 7).click()
+    assert tp.selected == (3, 7) and seen == [(3, 7)]
+    assert parse(tp.prism.value).magnitude == Fraction(float(a[3, 7])).__abs__()
+    assert [f.name for f in tp.prism.format_objects] == FMTS
+    tp.goto("[12, 40]")
+    assert tp.selected == (12, 40)
+    assert Fraction(tp.prism.value) == Fraction(float(a[12, 40]))
+    tp.rounding = "roundTowardZero"
+    assert tp.prism.rounding == "roundTowardZero"
+    # with the input's own format in the list, the cell's bit pattern is the Prism's source
+    tp.formats = ["float32", *FMTS]
+    tp.goto("2, 3")
+    assert tp.prism.source_format == "float32"
+    assert tp.prism.comparison.row("float32").code == int(a[2:3, 3].view(np.uint32)[0])
+
+
+def test_nd_axis_choice_and_sliders() -> None:
+    a = np.arange(3 * 4 * 50, dtype=np.float32).reshape(3, 4, 50)
+    tp = TensorPrism(a, formats=FMTS, view="value")
+    assert (tp.row_axis, tp.col_axis) == (1, 2) and len(tp.sliders_box.children) == 1
+    tp.sliders_box.children[0].value = 2  # axis 0 fixed at 2
+    assert np.array_equal(tp.window.raw, a[2, :, :16])
+    tp.row_axis_menu.value = 0  # rows: axis 0, columns: axis 2, axis 1 fixed
+    assert (tp.row_axis, tp.col_axis) == (0, 2)
+    tp.fixed = (0, 3, 0)
+    assert np.array_equal(tp.window.raw, a[:, 3, :16])
+    tp.col_axis_menu.value = 0  # choosing the row axis for columns swaps the two
+    assert (tp.row_axis, tp.col_axis) == (2, 0)
+    assert np.array_equal(tp.window.raw, a[:, 3, :16].T)
+    tp.goto("1, 2, 33")
+    assert tp.fixed[1] == 2 and tp.window.cell_of((1, 2, 33)) is not None
+    assert _cell(tp, *tp.window.cell_of((1, 2, 33))).description == "333"  # 1*200 + 2*50 + 33
+
+
+def test_pan_buttons_and_offsets() -> None:
+    tp = TensorPrism(_tensor(), formats=FMTS, rows=8, cols=8, view="value")
+    tp.pan_buttons["page-right"].click()
+    assert tp.col_offset == 8
+    tp.pan_buttons["right"].click()
+    tp.pan_buttons["page-down"].click()
+    assert (tp.row_offset, tp.col_offset) == (8, 9)
+    assert _cell(tp, 0, 0).tooltip.startswith(float.hex(float(_tensor()[8, 9]))[:6])
+    for _ in range(10):
+        tp.pan_buttons["page-right"].click()
+    assert tp.col_offset == 50 - 8  # clamped at the last full page
+    tp.col_input.value = 3
+    assert tp.col_offset == 3
+    state = _cell(tp, 1, 1).get_state()  # what the front-end would be sent
+    assert state["description"] == _cell(tp, 1, 1).description
+    assert state["tooltip"].startswith(float.hex(float(_tensor()[9, 4]))[:5])
+
+
+def test_bad_input_keeps_last_view() -> None:
+    tp = TensorPrism(_tensor(), formats=FMTS)
+    kept = tp.window
+    tp.goto("99, 1")
+    assert "out of range for axis 0 with size 40" in tp.message and tp.window is kept
+    tp.goto("1, 2x")
+    assert "column" in tp.message
+    tp.data = np.zeros(3, np.complex64)
+    assert "complex" in tp.message and tp.window is kept
+    tp.data = np.zeros(())
+    assert "0-d" in tp.message
+    tp.data = np.zeros((0, 4), np.float32)
+    assert "empty" in tp.message and tp.window is kept
+    tp.rows = 99
+    assert "1..32" in tp.message and tp.rows == 16
+    tp.format_a = "float16"
+    assert "not among the formats" in tp.message and tp.format_a == ""
+    tp.rounding = "sideways"
+    assert "rounding must be one of" in tp.message
+    tp.selected = (1, 2, 3)
+    assert "one index per axis" in tp.message and tp.selected == ()
+    tp.view = "class"  # a good change clears the message
+    assert tp.message == "" and tp.window is not kept
+
+
+@pytest.mark.parametrize("bad", [np.zeros(()), np.zeros((0, 3)), np.zeros(4, complex), "x"])
+def test_constructor_refuses_bad_data(bad: object) -> None:
+    with pytest.raises(BitprismError):
+        TensorPrism(bad, formats=FMTS)
+
+
+def test_views_value_error_compare() -> None:
+    a = _tensor()
+    tp = TensorPrism(a, formats=FMTS, rows=8, cols=8, view="value")
+    assert _cell(tp, 0, 1).description == "1e-2" and _cell(tp, 1, 0).description == "2.955"  # sin(0.3) * 10
+    tp.log_scale = True
+    assert "log-magnitude" in tp.legend_html.value
+    tp.view = "error"
+    assert "ULP" in tp.legend_html.value and _cell(tp, 2, 3).description == "NaN"
+    tp.error_unit = "relative"
+    assert "relative" in tp.legend_html.value
+    tp.view = "compare"
+    # bfloat16 (t = 7) lands at least as close as float8_e4m3fn (t = 3) on in-range values
+    labels = {_cell(tp, i, j).description[:1] for i in range(8) for j in range(8)}
+    assert "B" not in labels and "A" in labels
+    tp.view = "class"
+    assert _cell(tp, 2, 3).description == "NaN" and _cell(tp, 0, 0).description == "0"
+
+
+def test_torch_bfloat16_input() -> None:
+    torch = pytest.importorskip("torch")
+    t = torch.linspace(-3, 3, 600).reshape(20, 30).to(torch.bfloat16)
+    t[4, 7] = float("nan")
+    tp = TensorPrism(t, formats=["float8_e4m3fn", "float16"], view="class")
+    assert tp.window.raw.dtype == np.dtype(ml_dtypes.bfloat16)
+    tp.find_next("nan")
+    assert tp.selected == (4, 7)
+    tp.goto("1, 2")
+    assert Fraction(tp.prism.value) == Fraction(float(t[1, 2].float()))
+
+
+def _anon_kb() -> int | None:
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("RssAnon:"):
+                    return int(line.split()[1])
+    except OSError:
+        return None
+    return None
+
+
+def test_memmap_reads_window_and_chunks_only(tmp_path) -> None:
+    path = tmp_path / "big.f32"
+    shape = (4096, 4096)  # 64 MiB on disk (sparse), invented zeros with planted NaNs
+    mm = np.memmap(path, dtype=np.float32, mode="w+", shape=shape)
+    mm[100, 200] = np.nan
+    mm[4000, 17] = np.nan
+    mm.flush()
+    del mm
+    data = np.memmap(path, dtype=np.float32, mode="r", shape=shape)
+    before = _anon_kb()
+    tp = TensorPrism(data, formats=FMTS, rows=32, cols=32)
+    tp.find_next("nan")
+    tp.find_next("nan")
+    tp.pan("page-down")
+    after = _anon_kb()
+    assert tp.selected == (4000, 17)
+    assert isinstance(tp.data, np.memmap)  # never copied into memory
+    assert tp.nav_counts["nan"].value == "NaN: 2"
+    if before is not None and after is not None:
+        assert after - before < 48 * 1024, (before, after)  # well below the tensor's 64 MiB
+
+
+def test_range_chart_into_output() -> None:
+    pytest.importorskip("matplotlib")
+    tp = TensorPrism(_tensor(), formats=FMTS)
+    tp.chart_button.click()
+    assert tp.message == ""
+    (out,) = tp.chart_output.outputs
+    assert out["data"]["image/png"][:4] == "iVBO"  # base64 of the PNG signature
+
+
+def test_summary_scope_slice() -> None:
+    a = np.ones((3, 8, 9), np.float32)
+    a[1, 2, 3] = np.nan
+    tp = TensorPrism(a, formats=FMTS)
+    assert tp.summary.size == 3 * 8 * 9 and tp.summary.histogram.nan == 1
+    tp.summary_scope = "slice"
+    assert tp.summary.size == 8 * 9 and tp.summary.histogram.nan == 0
+    tp.fixed = (1, 0, 0)
+    assert tp.summary.histogram.nan == 1
+
+
+def test_case_state_round_trip_and_static_html(tmp_path) -> None:
+    a = _tensor()
+    tp = TensorPrism(a, formats=FMTS, view="error", rows=6, cols=5)
+    tp.goto("2, 3")
+    state = tp._case_state()
+    json.dumps(state, allow_nan=False)
+    assert state["data"]["dtype"] == "float32" and len(state["data"]["bits"]) == 30
+    back = TensorPrism._from_case_state(state)
+    assert np.array_equal(back.window.bits, tp.window.bits)  # NaN payloads included
+    assert back.view == "error" and back.selected == tp.window.cell_of((2, 3))
+    html = tp._static_html()
+    assert "bitprism-grid" in html and "bitprism-scan" in html and "<script" not in html
+    page = tp.export_html(tmp_path / "case.html", note="planted NaN")
+    from bitprism.ui.case_file import open_case
+
+    again = open_case(page)
+    assert np.array_equal(again.window.bits, tp.window.bits)
+    bad = dict(state, data=dict(state["data"], dtype="object"))
+    with pytest.raises(BitprismError, match="state.data.dtype"):
+        TensorPrism._from_case_state(bad)
