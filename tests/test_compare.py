@@ -270,16 +270,17 @@ def test_exact_text_parses_back(x: object) -> None:
 
 # ----- renderings -------------------------------------------------------------------------------
 def test_text_table_exact_at_fixed_width() -> None:
+    # stored values shown exactly when short: E4M3 0x1D = 13/128 = 0.1015625 (ref §9)
     c = compare("0.1", formats=("float8_e4m3fn", "float4_e2m1fn"))
     expected = "\n".join([
         "input 0.1  = 0.1",
         "roundTiesToEven, overflow standard, subnormals keep",
-        "format         class      value   ulp err      rel err  bits (sign exponent significand)  events",
-        "float8_e4m3fn  normal     0.1        +0.2     +0.01562  0 0011 101",
-        "float4_e2m1fn  zero       0.0        -0.2           -1  0 00 0                            underflow to zero",
+        "format         class      value       ulp err      rel err  bits (sign exponent significand)  events",
+        "float8_e4m3fn  normal     0.1015625      +0.2     +0.01562  0 0011 101",
+        "float4_e2m1fn  zero       0.0            -0.2           -1  0 00 0                            underflow to zero",
     ])
-    assert c.to_text(width=110) == expected
-    assert c.to_text(width=40).splitlines()[2] == "format         class      value   ulp e…"
+    assert c.to_text(width=120) == expected
+    assert c.to_text(width=40).splitlines()[2] == "format         class      value       u…"
     assert all(len(line) <= 40 for line in c.to_text(width=40).splitlines())
 
 

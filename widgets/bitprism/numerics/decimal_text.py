@@ -22,6 +22,7 @@ __all__ = [
     "abbreviate_decimal",
     "exact_decimal",
     "exact_text",
+    "readable_decimal",
     "shortest_decimal",
 ]
 
@@ -254,6 +255,16 @@ def abbreviate_decimal(text: str, max_digits: int = DEFAULT_MAX_DIGITS) -> str:
     cut = body[:max_digits]
     mant = cut[0] + "." + cut[1:] if len(cut) > 1 else cut
     return f"{'-' if negative else ''}{mant}…e{'-' if exp10 < 0 else '+'}{abs(exp10):02d} ({count} digits)"
+
+
+def readable_decimal(shortest: str, exact: str, max_digits: int = 17) -> str:
+    """What to show as a stored value: the exact decimal when it is short (so float16's 65504
+    reads 65504, not the shortest round-trip text 65500.0), else the shortest round-trip
+    decimal. ``max_digits`` = 17 is as long as a float64 round-trip text can get."""
+    if "…" in exact or not exact[:1].isdigit() and not exact.startswith("-"):
+        return shortest
+    count, _ = _count_digits(exact)
+    return exact if count <= max_digits else shortest
 
 
 def exact_text(x: ExactValue) -> str:

@@ -13,7 +13,7 @@ from fractions import Fraction
 from html import escape
 
 from ..numerics.compare import Comparison, FormatRow
-from ..numerics.decimal_text import abbreviate_decimal, exact_decimal
+from ..numerics.decimal_text import abbreviate_decimal, exact_decimal, readable_decimal
 from ..numerics.exact import ExactValue, _floor_log2
 from ..numerics.inspect import CodeClass
 from .compare_text import (
@@ -132,7 +132,7 @@ def header_html(c: Comparison) -> str:
         ]
     )
     return (
-        f'<div style="margin-bottom:4px"><b>input</b> <code>{_e(c.text)}</code> = '
+        f'<div style="margin-bottom:4px;line-height:1.4"><b>input</b> <code>{_e(c.text)}</code> = '
         f'<span title="{_e(full)}" style="{_MONO}">{_e(shown)}</span>'
         f'<div style="{_MUTED}">{_e(setting)}</div>'
         f'<div style="{_MUTED};margin-top:2px">{caption}</div></div>'
@@ -143,7 +143,10 @@ def _neighbour_text(row: FormatRow, which: str) -> str:
     n = row.next_down if which == "down" else row.next_up
     if n is None:
         return "none"
-    return f"{n.shortest} ({_hex(n.code, row)})"
+    shown = n.shortest
+    if n.value.is_finite:
+        shown = readable_decimal(n.shortest, exact_decimal(n.value.value))
+    return f"{shown} ({_hex(n.code, row)})"
 
 
 def _hex(code: int, row: FormatRow) -> str:
@@ -171,8 +174,9 @@ def band_html(c: Comparison, row: FormatRow, tiles: bool = True) -> str:
     if row.stored.is_finite:
         exact = row.exact
         value = (
-            f"<details style=\"display:inline-block\"><summary><b>{_e(row.shortest)}</b> "
-            f'<span style="{_MUTED}">exact</span></summary>'
+            '<details style="display:inline-block"><summary>'
+            f"<b>{_e(readable_decimal(row.shortest, exact))}</b> "
+            f'<span style="{_MUTED}">(exact decimal)</span></summary>'
             f'<span style="{_MONO};white-space:normal;word-break:break-all">{_e(exact)}</span>'
             "</details>"
         )
@@ -192,7 +196,7 @@ def band_html(c: Comparison, row: FormatRow, tiles: bool = True) -> str:
     )
     return (
         f'<div class="bitprism-band" data-format="{_e(f.name)}" '
-        f'style="border-left:3px solid #8a8a8a;padding:2px 8px;margin:6px 0">'
+        f'style="border-left:3px solid #8a8a8a;padding:2px 8px;margin:6px 0;line-height:1.4">'
         + "".join(parts)
         + "</div>"
     )

@@ -8,7 +8,7 @@ from __future__ import annotations
 from fractions import Fraction
 
 from ..numerics.compare import Comparison, FormatRow
-from ..numerics.decimal_text import exact_decimal
+from ..numerics.decimal_text import exact_decimal, readable_decimal
 from ..numerics.inspect import CodeClass
 
 __all__ = [
@@ -130,16 +130,19 @@ def comparison_text(c: Comparison, width: int = 120) -> str:
     lines = [_cut(head, width), _cut(setting, width)]
     name_w = max(6, *(len(r.format.name) for r in c.rows))
     bits_w = max(32, *(len(grouped_bits(r)) for r in c.rows))
-    value_w = max(5, *(len(r.shortest) for r in c.rows))
+    shown = [
+        readable_decimal(r.shortest, r.exact) if r.stored.is_finite else r.shortest for r in c.rows
+    ]
+    value_w = max(5, *(len(v) for v in shown))
     cols = (
         f"{'format':<{name_w}}  {'class':<9}  {'value':<{value_w}}  {'ulp err':>8}  "
         f"{'rel err':>11}  {'bits (sign exponent significand)':<{bits_w}}  events"
     )
     lines.append(_cut(cols.rstrip(), width))
-    for r in c.rows:
+    for r, value in zip(c.rows, shown):
         ev = ", ".join(event_labels(r))
         line = (
-            f"{r.format.name:<{name_w}}  {class_label(r):<9}  {r.shortest:<{value_w}}  "
+            f"{r.format.name:<{name_w}}  {class_label(r):<9}  {value:<{value_w}}  "
             f"{format_error(r.ulp_error):>8}  {format_number(r.rel_error, 4, signed=True):>11}  "
             f"{grouped_bits(r):<{bits_w}}  {ev}"
         )

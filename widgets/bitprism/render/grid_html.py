@@ -98,7 +98,9 @@ def _build_paints() -> dict[str, Paint]:
                              BADGES["subnormal"].text, "lands subnormal")
     p["underflow"] = Paint("underflow", BADGES["zero"].background, BADGES["zero"].text,
                            "underflows to zero")
-    p["overflow"] = Paint("overflow", BADGES["inf"].background, BADGES["inf"].text, "overflows")
+    # overflow is what a cast does, Inf what the input already was: keep them apart
+    p["overflow"] = Paint("overflow", BADGES["overflow"].background, BADGES["overflow"].text,
+                          "overflows")
     p["invalid"] = Paint("invalid", BADGES["nan"].background, BADGES["nan"].text,
                          "negative into unsigned (NaN)")
     # value view: diverging around zero
@@ -334,7 +336,7 @@ def _ratio_text(r: float) -> str:
 _BOX = (
     "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:11px;"
     "color:#1f2328;background:#ffffff;border:1px solid #d0d7de;border-radius:6px;"
-    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto"
+    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
 )
 _CELL = "min-width:34px;height:22px;text-align:center;padding:0 2px;border:1px solid #ffffff"
 _HEAD = "color:#57606a;text-align:center;padding:0 3px;font-weight:normal"
@@ -348,7 +350,7 @@ def legend_html(paint: GridPaint) -> str:
         f'background:{p.background};border:1px solid #8c959f"></span> {escape(p.label)}</span>'
         for p in paint.legend
     )
-    return (f'<div class="bitprism-legend" style="font-size:11px;margin:4px 0">'
+    return (f'<div class="bitprism-legend" style="font-size:11px;margin:4px 0;line-height:1.4">'
             f'<div>{escape(paint.caption)}</div><div>{items}</div></div>')
 
 

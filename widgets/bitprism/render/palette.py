@@ -66,6 +66,7 @@ TILES: dict[str, Swatch] = {
 BADGES: dict[str, Swatch] = {
     "nan": Swatch("nan", "NaN", "#b51c80", "#ffffff"),  # magenta
     "inf": Swatch("inf", "Inf", "#8b1a1a", "#ffffff"),  # deep red
+    "overflow": Swatch("overflow", "overflow", "#b54708", "#ffffff"),  # burnt orange
     "subnormal": Swatch("subnormal", "subnormal", "#dccbf2", "#3a2160"),  # lilac
     "zero": Swatch("zero", "zero", "#5f6368", "#ffffff"),  # grey
     "normal": Swatch("normal", "normal", "#e6e6e6", "#1f1f1f"),  # neutral

@@ -22,7 +22,7 @@ _ROLE = {"overflow": "inf", "underflow": "zero", "subnormal": "subnormal", "nan"
 _BOX = (
     "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:12px;"
     "color:#1f2328;background:#ffffff;border:1px solid #d0d7de;border-radius:6px;"
-    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto"
+    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
 )
 _TH = "text-align:right;padding:2px 8px;border-bottom:1px solid #d0d7de;font-weight:600"
 _TD = "text-align:right;padding:2px 8px;white-space:nowrap"
