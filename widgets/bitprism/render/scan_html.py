@@ -16,7 +16,7 @@ from .scan_text import COLUMNS, fmt_count, header_lines, scan_rows
 __all__ = ["scan_html"]
 
 # table column -> palette badge
-_ROLE = {"overflow": "inf", "underflow": "zero", "subnormal": "subnormal", "nan": "nan",
+_ROLE = {"overflow": "overflow", "underflow": "zero", "subnormal": "subnormal", "nan": "nan",
          "inf": "inf", "zero": "zero"}
 
 _BOX = (
