@@ -60,3 +60,19 @@ def test_plot_handles_block_formats_and_empty_input(tmp_path) -> None:
 def test_importing_scan_does_not_import_matplotlib() -> None:
     code = "import sys, bitprism.tensors.scan; sys.exit('matplotlib' in sys.modules)"
     assert subprocess.run([sys.executable, "-c", code]).returncode == 0
+
+
+def test_view_follows_the_data_not_the_widest_format() -> None:
+    # invented data: exponents about -26 .. 26; bfloat16's edges (-134, 128) are far away
+    res = scan(_data(), ("bfloat16", "float16", "float8_e4m3fn"), progress=False)
+    fig = res.plot()
+    lo, hi = fig.get_axes()[0].get_xlim()
+    exps = res.histogram.exponents
+    assert lo <= exps[0] - 2 and hi >= exps[-1] + 3  # every bar with a margin
+    assert lo > -60 and hi < 60  # bfloat16's far band edges stay out of view
+    # float8_e4m3fn's edges near the data are in view: overflow from 464 (OCP 8-bit spec:
+    # max 448, ties at 464 round to it), underflow below 2^-10
+    assert lo < np.log2(res["float8_e4m3fn"].underflow_below) and hi > np.log2(464)
+    for ax in fig.get_axes():  # every band label sits inside the visible range
+        for t in ax.texts:
+            assert lo <= t.get_position()[0] <= hi, t.get_text()

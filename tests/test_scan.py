@@ -588,3 +588,19 @@ def test_format_entry_accepts_aliases_and_dtypes() -> None:
     assert res.format_names == ("float16", "bfloat16")
     assert res["fp16"] is res["float16"]
     assert get_format("fp16").name == "float16"
+
+
+def test_block_nan_is_counted_apart_from_overflow() -> None:
+    mx = pytest.importorskip("bitprism.tensors.mx")
+    fmt = mx.get_mx_format("mxfp8_e4m3")
+    x = np.random.default_rng(19).standard_normal((2, 64))  # invented data, 4 blocks of 32
+    x[0, 3] = np.nan  # block (0, 0): its 31 finite neighbours become NaN (MX v1.0 §6.3)
+    x[1, 40] = np.inf  # block (1, 1): 31 more
+    f = scan(x, [fmt, "float16"], progress=False)
+    y = np.asarray(mx.mx_quantize(x, fmt).values)
+    lost = np.isfinite(x) & ~np.isfinite(y)
+    assert f[fmt.name].block_nan == int(lost.sum()) == 62
+    assert f[fmt.name].overflow == 0
+    assert f["float16"].block_nan is None
+    assert "block NaN" in f.to_text() and "block NaN" in f.to_html()
+    assert f[fmt.name].fraction("block_nan") == 62 / x.size

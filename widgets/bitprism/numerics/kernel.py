@@ -455,3 +455,22 @@ def encode_table(
         np.take(table, i, out=out[start : start + k])
         if progress is not None:
             progress(k)
+
+
+def table_codes(fmt: Format, options: CastOptions) -> np.ndarray:
+    """The read-only code table that ``encode_table`` gathers from, indexed by ``table_index``
+    (for callers that cast the same float32 data into several formats: one index, many
+    gathers). Only for ``table_eligible`` formats."""
+    return _table(fmt, options)
+
+
+def table_index(bits: np.ndarray, out: np.ndarray, scratch: np.ndarray) -> np.ndarray:
+    """Index into a ``table_codes`` table of each float32 pattern in ``bits`` (1-D uint32):
+    twice the top 16 bits, plus 1 where the low 16 bits are not all zero (the sticky bit).
+    ``out`` is an intp array and ``scratch`` a uint32 array, both of ``bits``' length."""
+    np.right_shift(bits, np.uint32(16), out=out, casting="unsafe")
+    np.left_shift(out, 1, out=out)
+    np.bitwise_and(bits, np.uint32(0xFFFF), out=scratch)
+    np.minimum(scratch, np.uint32(1), out=scratch)
+    np.add(out, scratch, out=out, casting="unsafe")
+    return out

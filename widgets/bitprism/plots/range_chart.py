@@ -41,6 +41,28 @@ def _share(n: int | None, size: int) -> str:
     return f"{pct:.3g}%" if pct >= 0.01 else "<0.01%"
 
 
+_PAD = 2  # binades shown beyond the data on each side
+_NEAR = 12  # a format's band edge this close to the data widens the view to show it
+
+
+def _view(exps: list[int], edges: list[float]) -> tuple[float, float]:
+    """The visible exponent range: the data's exponents plus a margin, widened to take in the
+    band edges that lie near the data (those that decide what happens to it); far edges, such
+    as bfloat16's -133 and 128 around data in -20 .. 20, stay out of view."""
+    if not exps:
+        if not edges:
+            return -8.0, 8.0
+        return math.floor(min(edges)) - _PAD, math.ceil(max(edges)) + _PAD
+    d_lo, d_hi = min(exps), max(exps) + 1  # the last bar spans [e, e + 1)
+    lo, hi = float(d_lo - _PAD), float(d_hi + _PAD)
+    for e in edges:
+        if d_lo - _NEAR <= e < lo + 1:
+            lo = min(lo, math.floor(e) - _PAD)
+        if hi - 1 < e <= d_hi + _NEAR:
+            hi = max(hi, math.ceil(e) + _PAD)
+    return lo, hi
+
+
 def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, log: bool = True) -> Any:
     """Draw the range chart of a ``ScanResult``; returns the matplotlib ``Figure``.
 
@@ -60,36 +82,48 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
     edges = []
     for f in rows:
         edges += [e for e in (_log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)) if e is not None]
-    lo = min(exps + [math.floor(e) for e in edges] or [0]) - 2
-    hi = max(exps + [math.ceil(e) for e in edges] or [0]) + 2
+    lo, hi = _view(exps, edges)
     for ax, f in zip(axes, rows):
         bands = []
         u, n_, o = _log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)
+        far_lo, far_hi = min(lo, *(edges or [lo])) - 1, max(hi, *(edges or [hi])) + 1
         if u is not None:
-            bands.append(("underflow", lo, u, f.underflow))
+            bands.append(("underflow", far_lo, u, f.underflow))
             if n_ is not None and n_ > u:
                 bands.append(("subnormal", u, n_, f.subnormal))
-        start = n_ if n_ is not None else (u if u is not None else lo)
-        end = o if o is not None else hi
+        start = n_ if n_ is not None else (u if u is not None else far_lo)
+        end = o if o is not None else far_hi
         bands.append(("normal", start, end, None))
         if o is not None:
-            bands.append(("overflow", o, hi, f.overflow))
+            bands.append(("overflow", o, far_hi, f.overflow))
         for kind, a, b, n in bands:
             alpha = 0.12 if kind == "normal" else 0.28
             ax.axvspan(a, b, color=_BAND[kind], alpha=alpha, lw=0)
-            if n is not None and b > a and (n or b - a >= 8):  # no crowded "0%" labels
+            va, vb = max(a, lo), min(b, hi)  # the visible part of the band
+            if n is not None and vb > va and (n or vb - va >= 8):  # no crowded "0%" labels
+                x, ha = (va + vb) / 2, "center"
+                if vb - va < 8 and va == lo:  # a narrow band at the edge of the view: the
+                    x, ha = lo + 0.2, "left"  # label grows inward instead of off the axes
+                elif vb - va < 8 and vb == hi:
+                    x, ha = hi - 0.2, "right"
                 ax.text(
-                    (a + b) / 2, 0.96, f"{kind} {_share(n, f.size)}", transform=ax.get_xaxis_transform(),
-                    ha="center", va="top", fontsize=7, color="#1f2328",
+                    x, 0.96, f"{kind} {_share(n, f.size)}",
+                    transform=ax.get_xaxis_transform(), ha=ha, va="top", fontsize=7,
+                    color="#1f2328", clip_on=True,
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7},
                 )
+            for edge in (a, b):  # band edges inside the view, as thin lines
+                if lo < edge < hi and kind != "normal":
+                    ax.axvline(edge, color=_BAND[kind], lw=0.8, alpha=0.7)
         if exps:
             ax.bar([e + 0.5 for e in exps], counts, width=0.9, color=_BAR, lw=0)
             if log:
                 ax.set_yscale("log")
+            top = max(counts)  # headroom above the tallest bar for the band labels
+            ax.set_ylim(0.5 if log else 0, top * 40 if log else top * 1.3)
         ax.set_xlim(lo, hi)
         ax.set_ylabel(f.format, rotation=0, ha="right", va="center", fontsize=8)
         ax.tick_params(labelsize=7)
-        ax.margins(y=0.25)
     axes[-1].set_xlabel("binary exponent  floor(log2 |x|)")
     extra = []
     for label, n in (("zero", h.zero), ("subnormal", h.subnormal), ("Inf", h.inf), ("NaN", h.nan)):

@@ -58,14 +58,16 @@ EXP_OFFSET = 1100
 EXP_SLOTS = 2200
 
 
-def rel_keys(rel: np.ndarray, out: np.ndarray) -> np.ndarray:
-    """Histogram bucket (int64) of each non-negative float64 in ``rel`` (NaN must not occur)."""
+def rel_keys(rel: np.ndarray, out: np.ndarray, top: float = math.inf) -> np.ndarray:
+    """Histogram bucket (int64) of each non-negative float64 in ``rel`` (NaN must not occur).
+    ``top``: an upper bound of ``rel`` if known (skips the clamp at the last bucket)."""
     u = out.view(np.uint64)
-    np.right_shift(rel.view(np.uint64), np.uint64(REL_SHIFT), out=u)
-    np.subtract(u, np.uint64(REL_BASE), out=u)  # wraps below the base: fixed by the clip
-    np.clip(out, 0, REL_BINS - 1, out=out)
-    # Patterns below the base wrapped to huge unsigned values, i.e. negative int64: clipped
-    # to 0 above. Nothing else is negative, because rel >= 0.
+    # patterns below the first edge (0 included) are raised to it: bucket 0
+    np.maximum(rel.view(np.uint64), np.uint64(REL_BASE << REL_SHIFT), out=u)
+    np.right_shift(u, np.uint64(REL_SHIFT), out=u)
+    np.subtract(u, np.uint64(REL_BASE), out=u)
+    if not top < 2.0**REL_HIGH_EXP:
+        np.minimum(u, np.uint64(REL_BINS - 1), out=u)
     return out
 
 
@@ -213,6 +215,7 @@ class FormatPartial:
     top_idx: np.ndarray = field(default_factory=_empty_i)
     ones: int = 0  # compared elements with relative error exactly 1 (histogram modes)
     collected: tuple[np.ndarray, ...] | None = None  # refinement pass: values or counts
+    block_nan: int = 0  # block formats: finite values made NaN by a NaN/Inf in their block
 
     def _merge_collected(self, o: "FormatPartial") -> tuple[np.ndarray, ...] | None:
         if self.collected is None or o.collected is None:
@@ -258,6 +261,7 @@ class FormatPartial:
             top_idx,
             self.ones + o.ones,
             self._merge_collected(o),
+            self.block_nan + o.block_nan,
         )
 
     def with_values(self, values: np.ndarray | None) -> "FormatPartial":

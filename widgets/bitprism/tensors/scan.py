@@ -33,7 +33,9 @@ Quantiles (``quantiles=``):
   ones take more passes over the data: the first builds the relative-error histogram, which
   puts each needed order statistic in a bucket; each further pass counts the elements of those
   buckets in 2^16 finer sub-ranges of float64 bit patterns, until a range holds at most
-  ``_CAP`` elements, whose values are then collected and sorted. Order statistics that the
+  ``_CAP`` elements (and all ranges of one pass at most ``_BUDGET``, 32 MiB of values), whose
+  values are then collected and the order statistic picked by ``np.partition``; in practice
+  one extra pass, casting only the formats still asking. Order statistics that the
   counts alone decide — 0 for values that survive exactly, exactly 1 for values flushed to
   zero — need no further pass. Peak memory stays bounded by the block, not the tensor.
 * ``"histogram"``: one pass; each order statistic is taken as the middle of its histogram
@@ -62,7 +64,9 @@ Block formats (the scan-format protocol): an entry of ``formats`` may be an obje
 * optional ``block_size: int`` (default 32), the number of consecutive elements along the
   flattened last axis that share a scale.
 
-For such entries the scan reports overflow (finite input, non-finite result), underflow, exact
+For such entries the scan reports overflow (finite input, non-finite result, its block free of
+NaN and Inf inputs), ``block_nan`` (finite input made NaN because its block holds a NaN or Inf
+input: the shared scale is NaN, MX v1.0 §6.3), underflow, exact
 and error statistics; subnormal and ULP figures are left out (``None``): they depend on each
 block's scale. ``rounding``, ``overflow`` and ``subnormals`` apply to plain formats only.
 """
@@ -81,6 +85,7 @@ from ..errors import BitprismError, UnsupportedInputError
 from ..formats import Format, get_format
 from ..numerics.codes import decode, encode, value_table
 from ..numerics.inspect import ulp
+from ..numerics.kernel import table_codes, table_eligible, table_index
 from ..numerics.options import CastOptions
 from .partials import (
     EXP_OFFSET,
@@ -296,7 +301,7 @@ class _Acc:
     """Mutable accumulators of one entry within one block (frozen into a FormatPartial)."""
 
     def __init__(self, spec: _Spec) -> None:
-        self.overflow = self.underflow = self.subnormal = self.invalid = 0
+        self.overflow = self.underflow = self.subnormal = self.invalid = self.block_nan = 0
         self.exact = self.compared = 0
         self.max_abs = self.max_rel = self.max_ulp = 0.0
         self.sum_x2 = self.sum_err2 = self.sum_ulp = 0.0
@@ -348,6 +353,7 @@ class _Acc:
             self.top_err,
             self.top_idx,
             self.ones,
+            block_nan=self.block_nan,
         )
 
 
@@ -359,6 +365,37 @@ def _inv_ulp_table(fmt: Format) -> np.ndarray:
         inv = np.where(np.isfinite(u), 1.0 / u, 0.0)
     inv.setflags(write=False)
     return inv
+
+
+@lru_cache(maxsize=64)
+def _nan_value_table(fmt: Format) -> np.ndarray:
+    """``value_table`` with NaN in place of ±Inf: a cast's error ``|q - x|`` is then NaN exactly
+    where it is left out (non-finite result or input), and one ``fmax`` clears them all."""
+    with np.errstate(invalid="ignore"):
+        t = value_table(fmt) * np.float64(1.0)
+        t[np.isinf(t)] = np.nan
+    t.setflags(write=False)
+    return t
+
+
+def _fast_cast(entry: _Entry, spec: _Spec) -> str:
+    """How a scan casts float32 data into a plain format: "table" (one gather per element from
+    the kernel's table, the index shared by every such format) or "kernel" (``encode``).
+    (numpy's own float32 -> float16 conversion was tried: it is exact but much slower than the
+    kernel on data that overflows or underflows, so float16 stays on the kernel.)"""
+    fmt = entry.fmt
+    if fmt is None or not spec.carrier32 or spec.scale is not None:
+        return "kernel"
+    if table_eligible(fmt, np.dtype(np.float32), spec.options):
+        return "table"
+    return "kernel"
+
+
+def _block_ids(idx: np.ndarray, seg: int, bs: int) -> np.ndarray:
+    """Block number of each position of a piece made of rows of ``seg`` elements, each row
+    cut into blocks of ``bs`` from its start (the last one may be short)."""
+    per_row = -(-seg // bs)
+    return (idx // seg) * per_row + (idx % seg) // bs
 
 
 def _hook_values(entry: _Entry, x64: np.ndarray, seg: int) -> np.ndarray:
@@ -425,8 +462,16 @@ def _scan_block(
 
     # scratch reused by every piece of the block (no fresh pages per piece)
     width_sub = min(sub, max(flat.size, 1))
-    buf = {name: np.empty(width_sub) for name in ("x64", "ax", "den", "err", "rel", "q", "sq")}
+    buf = {name: np.empty(width_sub) for name in ("x64", "xe", "x0", "ax", "den", "err", "rel", "q", "sq")}
     buf["keys"] = np.empty(width_sub, np.int64)
+    buf["ci"] = np.empty(width_sub, np.intp)  # codes as gather indices
+    buf["ti"] = np.empty(width_sub, np.intp)  # float32 table index, shared by table formats
+    buf["t32"] = np.empty(width_sub, np.uint32)
+    codebufs = {dt: np.empty(width_sub, dt) for dt in {e.fmt.code_dtype for e in spec.entries if e.fmt is not None}}
+    fast = {j: _fast_cast(e, spec) for j, e in enumerate(spec.entries)}
+    use_table = any(v == "table" for v in fast.values())
+    nanbool = np.empty(width_sub, bool)
+    keep = np.empty(width_sub, bool)
     for at in range(0, flat.size, sub):
         xs = flat[at : at + sub]
         k = xs.size
@@ -517,13 +562,26 @@ def _scan_block(
         if need64:
             ax = np.abs(x64, out=buf["ax"][:k])
             den = ax
+            xe = x64  # the data the errors are measured against: NaN where not finite
             if z or nonfinite:
                 den = buf["den"][:k]
                 np.copyto(den, ax)
                 den[~((ax > 0) & (ax < np.inf))] = 1.0
+            x0 = x64  # the data with 0 where not finite (for sums of squares)
+            if nonfinite:
+                where_nf = np.flatnonzero(a >= inf_bits)
+                xe = buf["xe"][:k]
+                np.copyto(xe, x64)
+                xe[where_nf] = np.nan  # so every left-out element's error is NaN
+                x0 = buf["x0"][:k]
+                np.copyto(x0, x64)
+                x0[where_nf] = 0.0
             err, rel, qbuf, sq = buf["err"][:k], buf["rel"][:k], buf["q"][:k], buf["sq"][:k]
             keys = buf["keys"][:k]
+            ci = buf["ci"][:k]
             shared_x2: float | None = None
+            if use_table and (full or collect):
+                tidx = table_index(bits, buf["ti"][:k], buf["t32"][:k])
         for j, entry in enumerate(spec.entries):
             acc = accs[j]
             fmt = entry.fmt
@@ -594,36 +652,50 @@ def _scan_block(
             if collect and not spec.targets[j]:  # type: ignore[index]
                 continue  # every order statistic of this entry is known already
             # ----- full cast
+            nan_table = False  # q is NaN (never Inf) wherever the error is left out
+            how = fast[j]
             if entry.hook is not None:
                 q = _hook_values(entry, x64, seg)
                 codes = None
             else:
-                src = x64 if spec.scale is not None or wide else xs
-                with np.errstate(invalid="ignore", over="ignore"):  # NaN/Inf inputs are expected
-                    codes = encode(
-                        src,
-                        fmt,
-                        spec.options.rounding,
-                        spec.options.overflow,
-                        spec.options.subnormals,
-                        _sub_seed(spec.seed, int(loc.to_global(np.array([at]))[0])),
-                    )
+                if how == "table":
+                    codes = np.take(table_codes(fmt, spec.options), tidx, out=codebufs[fmt.code_dtype][:k])  # type: ignore[union-attr,arg-type]
+                else:
+                    src = x64 if spec.scale is not None or wide else xs
+                    with np.errstate(invalid="ignore", over="ignore"):  # NaN/Inf inputs are expected
+                        codes = encode(
+                            src,
+                            fmt,
+                            spec.options.rounding,
+                            spec.options.overflow,
+                            spec.options.subnormals,
+                            _sub_seed(spec.seed, int(loc.to_global(np.array([at]))[0])),
+                        )
                 if fmt.bits <= 16:  # type: ignore[union-attr]
-                    ci = codes.astype(np.intp)  # one conversion for both table lookups
-                    q = np.take(value_table(fmt), ci, out=qbuf, mode="clip")
+                    np.copyto(ci, codes, casting="unsafe")  # one conversion for every lookup
+                    q = np.take(_nan_value_table(fmt), ci, out=qbuf, mode="wrap")
+                    nan_table = True
                 else:
                     q = decode(codes, fmt)
-            with np.errstate(invalid="ignore"):  # Inf - Inf where the input is Inf
-                np.subtract(q, x64, out=err)
+            with np.errstate(invalid="ignore"):  # NaN - NaN where the input is not finite
+                np.subtract(q, xe, out=err)
             np.abs(err, out=err)
-            top = err.max() if k else 0.0
-            if math.isfinite(top):
-                bad = None
+            bad = None
+            if k == 0:
                 nbad = 0
+            elif nan_table and not collect:
+                np.not_equal(err, err, out=nanbool[:k])
+                nbad = int(np.count_nonzero(nanbool[:k]))
+                if nbad:
+                    np.fmax(err, 0.0, out=err)  # NaN -> 0: left out of every sum
             else:
-                bad = np.flatnonzero(~np.isfinite(err))
-                err[bad] = 0.0
-                nbad = bad.size
+                top = err.max()
+                if math.isfinite(top):
+                    nbad = 0
+                else:
+                    bad = np.flatnonzero(~np.isfinite(err))
+                    err[bad] = 0.0
+                    nbad = bad.size
             np.divide(err, den, out=rel)
             if collect:  # refinement pass: values or finer counts inside target ranges
                 u = rel.view(np.uint64)  # left-out elements have rel 0, below every range
@@ -637,10 +709,16 @@ def _scan_block(
                 continue
             if entry.hook is not None:
                 if nbad:
-                    fin = np.isfinite(x64[bad])  # type: ignore[index]
-                    acc.overflow += int(np.count_nonzero(fin))
+                    lost = bad[np.isfinite(x64[bad])]  # type: ignore[index]
+                    if lost.size and nonfinite:
+                        # finite values made NaN by a NaN/Inf elsewhere in their block
+                        nf_blocks = _block_ids(np.flatnonzero(a >= inf_bits), seg, entry.block_size)
+                        in_nan_block = np.isin(_block_ids(lost, seg, entry.block_size), nf_blocks)
+                        acc.block_nan += int(np.count_nonzero(in_nan_block))
+                        lost = lost[~in_nan_block]
+                    acc.overflow += int(lost.size)
                     if acc.found["overflow"] < limit:
-                        idx = bad[fin][: limit - acc.found["overflow"]]
+                        idx = lost[: limit - acc.found["overflow"]]
                         if idx.size:
                             acc.where["overflow"].append(loc.to_global(idx + at))
                             acc.found["overflow"] += idx.size
@@ -679,25 +757,25 @@ def _scan_block(
             if compared:
                 emax = float(err.max())
                 acc.max_abs = max(acc.max_abs, emax)
-                acc.max_rel = max(acc.max_rel, float(rel.max()))
+                rmax = float(rel.max())
+                acc.max_rel = max(acc.max_rel, rmax)
                 # squares summed with einsum (not BLAS dot: same result on every machine)
                 acc.sum_err2 += float(np.einsum("i,i->", err, err))
                 if nbad == nonfinite:  # only the non-finite inputs are left out: shared sum
                     if shared_x2 is None:
-                        if nonfinite:
-                            np.copyto(sq, x64)
-                            sq[~(ax < np.inf)] = 0.0
-                            shared_x2 = float(np.einsum("i,i->", sq, sq))
-                        else:
-                            shared_x2 = float(np.einsum("i,i->", x64, x64))
+                        shared_x2 = float(np.einsum("i,i->", x0, x0))
                     acc.sum_x2 += shared_x2
+                elif bad is None:
+                    np.logical_not(nanbool[:k], out=keep[:k])
+                    np.multiply(x0, keep[:k], out=sq)
+                    acc.sum_x2 += float(np.einsum("i,i->", sq, sq))
                 else:
-                    np.copyto(sq, x64)
+                    np.copyto(sq, x0)
                     sq[bad] = 0.0
                     acc.sum_x2 += float(np.einsum("i,i->", sq, sq))
                 if codes is not None:
                     if fmt.bits <= 16:  # type: ignore[union-attr]
-                        ue = np.take(_inv_ulp_table(fmt), ci, out=sq, mode="clip")
+                        ue = np.take(_inv_ulp_table(fmt), ci, out=sq, mode="wrap")
                         np.multiply(ue, err, out=ue)
                     else:
                         with np.errstate(invalid="ignore"):
@@ -707,11 +785,15 @@ def _scan_block(
                     acc.sum_ulp += float(ue.sum())
                 if acc.hist is not None:
                     acc.ones += int(np.count_nonzero(rel == 1.0))
-                    rel_keys(rel, keys)
+                    rel_keys(rel, keys, rmax)
                     acc.hist += np.bincount(keys, minlength=REL_BINS)
                     acc.hist[0] -= nbad
                 if acc.values is not None:
-                    acc.values.append(np.delete(rel, bad) if nbad else rel.copy())
+                    if nbad:
+                        kept = rel[~nanbool[:k]] if bad is None else np.delete(rel, bad)
+                    else:
+                        kept = rel.copy()
+                    acc.values.append(kept)
                 # largest errors: (error desc, index asc); only elements with error > 0
                 if limit and emax > (acc.top_err[-1] if acc.top_err.size >= limit else acc.floor):
                     _update_top(acc, err, limit, loc, at)
@@ -844,15 +926,14 @@ class FormatScan:
     overflow_from: float | None = None
     underflow_below: float | None = None
     normal_from: float | None = None
+    block_nan: int | None = None
 
     def fraction(self, kind: str) -> float | None:
         """Share of all elements in a class: nan, inf, overflow, underflow, subnormal, invalid,
-        exact."""
-        if kind not in ("nan", "inf", "overflow", "underflow", "subnormal", "invalid", "exact"):
-            raise BitprismError(
-                "kind must be one of nan, inf, overflow, underflow, subnormal, invalid, exact; "
-                f"got {kind!r}"
-            )
+        exact, block_nan."""
+        kinds = ("nan", "inf", "overflow", "underflow", "subnormal", "invalid", "exact", "block_nan")
+        if kind not in kinds:
+            raise BitprismError(f"kind must be one of {', '.join(kinds)}; got {kind!r}")
         value = getattr(self, kind)
         if value is None or self.size == 0:
             return None if value is None else 0.0
@@ -923,15 +1004,36 @@ class ScanResult:
 
         return range_chart(self, **kwargs)
 
+    def _block_nan_note(self) -> str | None:
+        """One line on the block formats' finite values lost to a NaN/Inf in their block
+        (counted apart from overflow), or None when the scan has no block formats."""
+        rows = [f for f in self.formats if f.block_nan is not None]
+        if not rows:
+            return None
+        from ..render.scan_text import fmt_count
+
+        parts = ", ".join(f"{f.format} {fmt_count(f.block_nan, f.size)}" for f in rows)
+        return f"block NaN (finite values lost to a NaN/Inf in their block, not overflow): {parts}"
+
     def to_text(self) -> str:
         from ..render.scan_text import scan_text
 
-        return scan_text(self)
+        text = scan_text(self)
+        note = self._block_nan_note()
+        return text if note is None else f"{text}\n{note}"
 
     def to_html(self) -> str:
+        from html import escape
+
         from ..render.scan_html import scan_html
 
-        return scan_html(self)
+        page = scan_html(self)
+        note = self._block_nan_note()
+        if note is None:
+            return page
+        line = f'<div style="margin-top:4px">{escape(note)}</div>'
+        cut = page.rfind("</div>")  # inside the result's box
+        return page[:cut] + line + page[cut:] if cut >= 0 else page + line
 
     def __str__(self) -> str:
         return self.to_text()
@@ -1200,7 +1302,8 @@ def scan(
     return _build(arr, dtype, size, spec, part, fparts, resolved)
 
 
-_CAP = 1 << 16  # a refinement pass collects the values of a range once it holds this few
+_CAP = 1 << 21  # a refinement pass collects the values of a range once it holds this few
+_BUDGET = 1 << 22  # ... and at most this many values in one pass, over all ranges (32 MiB)
 _F64_TOP = 0x7FF0000000000001  # just above the pattern of +Inf
 
 # A request: (entry, order statistic k, low pattern, high pattern, rank inside, count inside).
@@ -1236,10 +1339,12 @@ def _targets_for(pending: list[_Request], n_entries: int) -> tuple[tuple[tuple[i
     for the values, else for counts over ``bins`` sub-ranges of 2^shift patterns each."""
     per: list[list[tuple[int, int, int, int]]] = [[] for _ in range(n_entries)]
     index: dict[tuple[int, int, int], int] = {}
-    for j, _, lo_p, hi_p, _, count in pending:
+    budget = _BUDGET
+    for j, _, lo_p, hi_p, _, count in sorted(pending, key=lambda r: r[5]):  # smallest first
         if (j, lo_p, hi_p) in index:
             continue
-        if count <= _CAP:
+        if count <= min(_CAP, budget):
+            budget -= count
             t = (lo_p, hi_p, 0, 0)
         else:
             width = hi_p - lo_p
@@ -1258,7 +1363,7 @@ def _refine(pending: list[_Request], index: dict, targets: tuple, more: BlockPar
         _, _, shift, nbins = targets[j][t_i]
         got = more.formats[j].collected[t_i]  # type: ignore[index]
         if nbins == 0:
-            resolved[j][k] = float(np.sort(got)[rank])
+            resolved[j][k] = float(np.partition(got, rank)[rank])
             continue
         cum = np.cumsum(got)
         i = int(np.searchsorted(cum, rank, side="right"))
@@ -1392,6 +1497,7 @@ def _build(
                 th.overflow_from if th is not None else None,
                 th.nonzero_from if th is not None else None,
                 th.normal_from if th is not None else None,
+                None if plain else fp.block_nan,
             )
         )
         where[("overflow", entry.name)] = unravel(fp.where_overflow)
