@@ -1,6 +1,6 @@
 """compare(), shortest/exact decimal text, and the text/HTML renderings of a Comparison.
 
-Reference values: /work/shared/reference-values.md, cited per check as "ref §n" (the §9
+Reference values: reference-values.md, cited per check as "ref §n" (the §9
 cross-format error tables and the §1.4 worked encodings are "from library": the codes are
 recomputed here with ml_dtypes / numpy and the errors with fractions).
 """

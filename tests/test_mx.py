@@ -1,6 +1,6 @@
 """MX block formats (OCP Microscaling Formats Specification v1.0, Sept 2023).
 
-Reference values come from /work/shared/reference-values.md §3 (MX Tables 1, 5-7 and §6.3, via
+Reference values come from reference-values.md §3 (MX Tables 1, 5-7 and §6.3, via
 transcriptions and the reference emulation library), each check naming its section. The
 element-by-element oracle below is a scalar re-implementation of the §6.3 rule in
 ``fractions.Fraction``; it uses neither bitprism nor ml_dtypes.
