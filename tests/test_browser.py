@@ -14,8 +14,6 @@ CI=true it fails.
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 import time
 from pathlib import Path
 from typing import Any, Iterator

@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from fractions import Fraction
 from html import escape
+from typing import TYPE_CHECKING, Sequence
 
 from ..numerics.compare import Comparison, FormatRow
 from ..numerics.decimal_text import abbreviate_decimal, exact_decimal, readable_decimal
@@ -25,6 +26,9 @@ from .compare_text import (
     format_number,
 )
 from .palette import badge_style, tile_style
+
+if TYPE_CHECKING:
+    from ..numerics.evaluate import Evaluation
 
 __all__ = [
     "ALIGNED_MAX_COLUMNS",
@@ -357,26 +361,26 @@ def comparison_html(c: Comparison, aligned: bool = True, tiles: bool = True) -> 
     )
 
 
-def evaluations_html(evaluations: "list[object]") -> str:
+def evaluations_html(evaluations: Sequence[Evaluation]) -> str:
     """Per-format arithmetic (``numerics.evaluate`` results): each format's answer, the exact
     answer rounded once, and every step that was not exact (absorbed addends, overflow...)."""
     from ..numerics.decimal_text import shortest_decimal
 
     rows = []
     for ev in evaluations:
-        fmt = ev.format  # type: ignore[attr-defined]
-        result = shortest_decimal(ev.code, fmt)  # type: ignore[attr-defined]
-        if ev.exact_code is None:  # type: ignore[attr-defined]
+        fmt = ev.format
+        result = shortest_decimal(ev.code, fmt)
+        if ev.exact_code is None:
             once = "n/a"
         else:
-            once = shortest_decimal(ev.exact_code, fmt)  # type: ignore[attr-defined]
-        differs = ev.exact_code is not None and ev.exact_code != ev.code  # type: ignore[attr-defined]
+            once = shortest_decimal(ev.exact_code, fmt)
+        differs = ev.exact_code is not None and ev.exact_code != ev.code
         notes = [
             f"{s.operation} {s.event}"
-            for s in ev.steps  # type: ignore[attr-defined]
+            for s in ev.steps
             if s.event != "exact" and s.kind != "literal"
         ]
-        lit = [s for s in ev.steps if s.kind == "literal" and s.event != "exact"]  # type: ignore[attr-defined]
+        lit = [s for s in ev.steps if s.kind == "literal" and s.event != "exact"]
         if lit:
             notes.append(f"{len(lit)} literal(s) rounded")
         mark = badge("flag", "differs from one rounding") if differs else ""

@@ -342,7 +342,7 @@ def make_window(
     fixed = tuple(int(v) for v in fixed)
     if len(fixed) != len(shape):
         raise BitprismError(f"fixed needs one index per axis ({len(shape)}); got {fixed!r}")
-    key: list[object] = []
+    key: list[int | slice] = []
     for ax, n in enumerate(shape):
         if ax == col_axis:
             if not 0 <= col0 < n:

@@ -11,12 +11,13 @@ from __future__ import annotations
 
 import functools
 from contextlib import contextmanager
-from typing import Any, Callable, Iterator
+from typing import Any, Iterator
 
 import ipywidgets as W
 from traitlets import Any as AnyTrait
 from traitlets import Bool, Int, List, TraitError, Unicode, observe, validate
 
+from .guarded import guarded, message_for
 from ..errors import BitprismError, ParseError
 from ..formats import FORMATS, Format, get_format
 from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare
@@ -40,24 +41,6 @@ _VIA_CHOICES = (("direct", ""), ("through float32", "float32"))
 _FIELD_ROLES = ("sign", "exponent", "significand")
 
 
-def _message_for(exc: BaseException) -> str:
-    if isinstance(exc, ParseError):
-        return f"{exc.reason} (column {exc.column})"
-    return f"{type(exc).__name__}: {exc}"
-
-
-def _guarded(method: Callable[..., Any]) -> Callable[..., Any]:
-    """Run a callback; show any error in the message area instead of losing it."""
-
-    @functools.wraps(method)
-    def wrapper(self: "Prism", *args: Any, **kwargs: Any) -> Any:
-        try:
-            return method(self, *args, **kwargs)
-        except Exception as exc:  # shown to the person, who can act on it
-            self.message = _message_for(exc)
-            return None
-
-    return wrapper
 
 
 class _Band:
@@ -142,7 +125,7 @@ class Prism(CaseFileMixin, W.VBox):
     )
     formats = List(
         AnyTrait(),
-        default_value=list(DEFAULT_FORMATS),
+        default_value=list[Any](DEFAULT_FORMATS),
         help="formats shown, by name, or Format objects for custom layouts",
     )
     rounding = Unicode("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
@@ -265,7 +248,7 @@ class Prism(CaseFileMixin, W.VBox):
             try:
                 parse(v)
             except ParseError as exc:
-                raise TraitError(f"value {v!r} is not a number: {_message_for(exc)}") from exc
+                raise TraitError(f"value {v!r} is not a number: {message_for(exc)}") from exc
             return v.strip()
         try:
             return exact_text(as_exact(v))
@@ -347,7 +330,7 @@ class Prism(CaseFileMixin, W.VBox):
                 pinned=pinned,
             )
         except Exception as exc:  # keep the last good view, say what went wrong
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self.set_trait("comparison", c)
         self.message = ""
@@ -407,7 +390,7 @@ class Prism(CaseFileMixin, W.VBox):
                 for f in self.format_objects
             ]
         except Exception as exc:
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self.evaluation_html.value = evaluations_html(evs)
 
@@ -421,7 +404,7 @@ class Prism(CaseFileMixin, W.VBox):
         )
 
     # ----- callbacks -------------------------------------------------------------------------
-    @_guarded
+    @guarded
     def _on_value_text(self, change: Any) -> None:
         if self._suspend:
             return
@@ -434,14 +417,14 @@ class Prism(CaseFileMixin, W.VBox):
         try:
             parse(text)
         except ParseError as exc:
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         with self._bulk():
             self.source_format = ""
             self.source_code = None
             self.value = text
 
-    @_guarded
+    @guarded
     def _on_bits_text(self, change: Any) -> None:
         if self._suspend or not change["new"].strip():
             return
@@ -455,7 +438,7 @@ class Prism(CaseFileMixin, W.VBox):
         try:
             code = parse_bits(text, f)
         except ParseError as exc:
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self.set_source(f, code)
 
@@ -471,12 +454,12 @@ class Prism(CaseFileMixin, W.VBox):
             self.source_format = f.name
             self.source_code = code
 
-    @_guarded
+    @guarded
     def _on_bit_click(self, index: int, bit: int, button: Any = None) -> None:
         row = self.comparison.rows[index]
         self.set_source(row.format, row.code ^ (1 << bit))
 
-    @_guarded
+    @guarded
     def _on_nav_click(self, index: int, action: str, button: Any = None) -> None:
         row: FormatRow = self.comparison.rows[index]
         f = row.format
@@ -504,19 +487,19 @@ class Prism(CaseFileMixin, W.VBox):
             code = 1 if f.has_subnormals else ((1 << f.significand_bits) if f.has_zero else 0)
         self.set_source(f, code)
 
-    @_guarded
+    @guarded
     def _on_control(self, name: str, change: Any) -> None:
         if self._suspend:
             return
         setattr(self, name, change["new"])
 
-    @_guarded
+    @guarded
     def _on_seed(self, change: Any) -> None:
         if self._suspend:
             return
         self.seed = change["new"]
 
-    @_guarded
+    @guarded
     def _on_add_format(self, change: Any) -> None:
         name = change["new"]
         if not name:
@@ -528,7 +511,7 @@ class Prism(CaseFileMixin, W.VBox):
         finally:
             self._suspend -= 1
 
-    @_guarded
+    @guarded
     def _on_expression_text(self, change: Any) -> None:
         if self._suspend:
             return

@@ -20,14 +20,15 @@ import functools
 import io
 import re
 from contextlib import contextmanager
-from typing import Any, Callable, Iterator
+from typing import Any, Iterator
 
 import ipywidgets as W
 import numpy as np
 from traitlets import Any as AnyTrait
 from traitlets import Bool, Int, List, Tuple, Unicode, observe, validate
 
-from ..errors import BitprismError, ParseError
+from .guarded import guarded, message_for
+from ..errors import BitprismError
 from ..formats import FORMATS, Format, get_format
 from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
 from ..render.grid_html import PAINTS, VIEWS, GridPaint, grid_html, legend_html, paint_window
@@ -70,24 +71,6 @@ _SCOPES = ("tensor", "slice")
 _SUMMARY_QUANTILES = ("auto", "exact", "histogram", "none")
 
 
-def _message_for(exc: BaseException) -> str:
-    if isinstance(exc, ParseError):
-        return f"{exc.reason} (column {exc.column})"
-    return f"{type(exc).__name__}: {exc}"
-
-
-def _guarded(method: Callable[..., Any]) -> Callable[..., Any]:
-    """Run a callback; show any error in the message area instead of losing it."""
-
-    @functools.wraps(method)
-    def wrapper(self: "TensorPrism", *args: Any, **kwargs: Any) -> Any:
-        try:
-            return method(self, *args, **kwargs)
-        except Exception as exc:  # shown to the person, who can act on it
-            self.message = _message_for(exc)
-            return None
-
-    return wrapper
 
 
 def _model_ref(w: W.Widget) -> str:
@@ -128,7 +111,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
     _case_kind = "tensor_prism"
 
     data = AnyTrait(None, help="the tensor, as the numpy view bitprism.as_array gives")
-    formats = List(AnyTrait(), default_value=list(DEFAULT_FORMATS),
+    formats = List(AnyTrait(), default_value=list[Any](DEFAULT_FORMATS),
                    help="formats cast to, by name, or Format objects for custom layouts")
     format_a = Unicode("", help="format A: cast, error and compare views ('' = first format)")
     format_b = Unicode("", help="format B of the compare view ('' = second format)")
@@ -365,7 +348,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
     def _reject(self, name: str, exc: BaseException) -> Any:
         if getattr(self, "_constructing", True):
             raise BitprismError(str(exc)) from exc
-        self.message = _message_for(exc)
+        self.message = message_for(exc)
         return getattr(self, name)
 
     @validate("data")
@@ -591,7 +574,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
                                  self.error_unit, tips)
             summary = self._summary_for(arr, opts)
         except Exception as exc:  # keep the last good view, say what went wrong
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self._tips_key, self._tips = tips_key, paint.tooltips
         self.set_trait("window", w)
@@ -849,18 +832,18 @@ class TensorPrism(CaseFileMixin, W.VBox):
                     p.source_code = None
                     p.value = int(raw) if in_fmt is None else float(raw.astype(np.float64))
         except Exception as exc:
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self._prism_key = key
 
     # ----- callbacks ---------------------------------------------------------------------------
-    @_guarded
+    @guarded
     def _on_control(self, name: str, change: Any) -> None:
         if self._suspend:
             return
         setattr(self, name, change["new"])
 
-    @_guarded
+    @guarded
     def _on_slider(self, axis: int, change: Any) -> None:
         if self._suspend:
             return
@@ -868,7 +851,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
         fixed[axis] = int(change["new"])
         self.fixed = tuple(fixed)
 
-    @_guarded
+    @guarded
     def _on_cell_click(self, k: int, button: Any = None) -> None:
         w = self.window
         rows, cols = self._grid_shape
@@ -884,7 +867,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
                                 self.fixed)
         self.selected = tuple(int(i) for i in np.atleast_1d(index))
 
-    @_guarded
+    @guarded
     def _on_goto(self, change: Any) -> None:
         text = change["new"]
         if self._suspend or not text.strip():
@@ -896,11 +879,11 @@ class TensorPrism(CaseFileMixin, W.VBox):
         try:
             idx = parse_index(text, self.data.shape, (self.row_axis, self.col_axis), self.fixed)
         except BitprismError as exc:
-            self.message = _message_for(exc)
+            self.message = message_for(exc)
             return
         self.selected = idx
 
-    @_guarded
+    @guarded
     def _on_pan(self, name: str, button: Any = None) -> None:
         self.pan(name)
 
@@ -923,7 +906,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
             v = self.row_offset + (step if d == "down" else -step)
             self.row_offset = max(0, min(v, max(nrows - self.rows, 0)))
 
-    @_guarded
+    @guarded
     def _on_find(self, kind: str, backward: bool, button: Any = None) -> None:
         self.find_next(kind, backward)
 
@@ -967,7 +950,7 @@ class TensorPrism(CaseFileMixin, W.VBox):
         for kind, html in self.nav_counts.items():
             html.value = self._count_text(kind, fa, opts)
 
-    @_guarded
+    @guarded
     def _on_chart(self, button: Any = None) -> None:
         self.show_range_chart()
 
