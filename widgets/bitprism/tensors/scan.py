@@ -239,6 +239,10 @@ class _Entry:
         return self.pos is not None and self.pos == self.neg
 
 
+# Refinement ranges per entry: (low pattern, high pattern, shift, bins) each.
+_Targets = tuple[tuple[tuple[int, int, int, int], ...], ...]
+
+
 @dataclass(frozen=True)
 class _Spec:
     entries: tuple[_Entry, ...]
@@ -249,7 +253,7 @@ class _Spec:
     keep_values: bool
     carrier32: bool
     seed: int | None
-    targets: tuple[tuple[tuple[int, int, int, int], ...], ...] | None = None  # refinement pass
+    targets: _Targets | None = None  # refinement pass
 
     @property
     def hooks(self) -> bool:
@@ -462,7 +466,7 @@ def _scan_block(
 
     # scratch reused by every piece of the block (no fresh pages per piece)
     width_sub = min(sub, max(flat.size, 1))
-    buf = {name: np.empty(width_sub) for name in ("x64", "xe", "x0", "ax", "den", "err", "rel", "q", "sq")}
+    buf: dict[str, np.ndarray] = {name: np.empty(width_sub) for name in ("x64", "xe", "x0", "ax", "den", "err", "rel", "q", "sq")}
     buf["keys"] = np.empty(width_sub, np.int64)
     buf["ci"] = np.empty(width_sub, np.intp)  # codes as gather indices
     buf["ti"] = np.empty(width_sub, np.intp)  # float32 table index, shared by table formats
@@ -475,7 +479,8 @@ def _scan_block(
     for at in range(0, flat.size, sub):
         xs = flat[at : at + sub]
         k = xs.size
-        # ----- the data as the cast reads it (carrier) and as float64
+        # ----- the data as the cast reads it (carrier) and as float64 (None: not needed)
+        x64: np.ndarray | None
         if spec.scale is not None:
             x64 = buf["x64"][:k]
             np.copyto(x64, xs, casting="unsafe")  # exact: every input dtype fits float64
@@ -490,7 +495,7 @@ def _scan_block(
             carrier = x64
         else:
             carrier = xs if xs.dtype == np.float32 else xs.astype(np.float32)
-            x64 = None  # type: ignore[assignment]
+            x64 = None
             if need64:
                 x64 = buf["x64"][:k]
                 np.copyto(x64, carrier)
@@ -560,6 +565,7 @@ def _scan_block(
             return counted[key]
 
         if need64:
+            assert x64 is not None  # every branch above sets it when need64
             ax = np.abs(x64, out=buf["ax"][:k])
             den = ax
             xe = x64  # the data the errors are measured against: NaN where not finite
@@ -591,7 +597,10 @@ def _scan_block(
                     po = _pattern(entry.pos.overflow_from, wide)  # type: ignore[union-attr]
                     ov = count("abs", po) - count("abs", int(inf_bits)) if po <= inf_bits else 0
                     if ov:
-                        acc.note("overflow", limit, lambda po=po: (a >= uint(po)) & (a < inf_bits), loc, at)
+                        def ov_abs_mask(po: int = po) -> np.ndarray:
+                            return (a >= uint(po)) & (a < inf_bits)
+
+                        acc.note("overflow", limit, ov_abs_mask, loc, at)
                 else:
                     po = _pattern(entry.pos.overflow_from, wide)  # type: ignore[union-attr]
                     ovp = count("pos", po) - count("pos", int(inf_bits)) if po <= inf_bits else 0
@@ -651,15 +660,18 @@ def _scan_block(
                 continue
             if collect and not spec.targets[j]:  # type: ignore[index]
                 continue  # every order statistic of this entry is known already
-            # ----- full cast
+            # ----- full cast (full or a hook entry, so need64: x64 is set)
+            assert x64 is not None
             nan_table = False  # q is NaN (never Inf) wherever the error is left out
             how = fast[j]
+            codes: np.ndarray | None
             if entry.hook is not None:
                 q = _hook_values(entry, x64, seg)
                 codes = None
             else:
+                assert fmt is not None  # entries without a hook are plain formats
                 if how == "table":
-                    codes = np.take(table_codes(fmt, spec.options), tidx, out=codebufs[fmt.code_dtype][:k])  # type: ignore[union-attr,arg-type]
+                    codes = np.take(table_codes(fmt, spec.options), tidx, out=codebufs[fmt.code_dtype][:k])
                 else:
                     src = x64 if spec.scale is not None or wide else xs
                     with np.errstate(invalid="ignore", over="ignore"):  # NaN/Inf inputs are expected
@@ -671,7 +683,7 @@ def _scan_block(
                             spec.options.subnormals,
                             _sub_seed(spec.seed, int(loc.to_global(np.array([at]))[0])),
                         )
-                if fmt.bits <= 16:  # type: ignore[union-attr]
+                if fmt.bits <= 16:
                     np.copyto(ci, codes, casting="unsafe")  # one conversion for every lookup
                     q = np.take(_nan_value_table(fmt), ci, out=qbuf, mode="wrap")
                     nan_table = True
@@ -709,7 +721,8 @@ def _scan_block(
                 continue
             if entry.hook is not None:
                 if nbad:
-                    lost = bad[np.isfinite(x64[bad])]  # type: ignore[index]
+                    assert bad is not None  # no NaN table for hooks: bad holds the left-out
+                    lost = bad[np.isfinite(x64[bad])]
                     if lost.size and nonfinite:
                         # finite values made NaN by a NaN/Inf elsewhere in their block
                         nf_blocks = _block_ids(np.flatnonzero(a >= inf_bits), seg, entry.block_size)
@@ -727,29 +740,36 @@ def _scan_block(
                 uf = int(np.count_nonzero(um))
                 acc.underflow += uf
                 if uf:
-                    acc.note("underflow", limit, lambda um=um: um, loc, at)
+                    def um_mask(um: np.ndarray = um) -> np.ndarray:
+                        return um
+
+                    acc.note("underflow", limit, um_mask, loc, at)
                 if not full:
                     continue
             else:
                 # underflow and subnormal from the codes (the cast's actual outcome)
-                if fmt.has_zero:  # type: ignore[union-attr]
-                    cm = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))  # type: ignore[union-attr]
-                    zc = cm == 0 if fmt.has_negative_zero else codes == 0  # type: ignore[union-attr]
+                assert fmt is not None and codes is not None  # set by the plain-format cast
+                if fmt.has_zero:
+                    cm = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))
+                    zc = cm == 0 if fmt.has_negative_zero else codes == 0
                     nz = int(np.count_nonzero(zc))
-                    uf = nz - z - (0 if fmt.has_nan else sub_nan)  # type: ignore[union-attr]
+                    uf = nz - z - (0 if fmt.has_nan else sub_nan)
                     acc.underflow += uf
                     if uf:
-                        acc.note(
-                            "underflow", limit,
-                            lambda zc=zc: zc & (a != 0) & (a <= inf_bits), loc, at,
-                        )
-                    if fmt.has_subnormals:  # type: ignore[union-attr]
+                        def uf_mask(zc: np.ndarray = zc) -> np.ndarray:
+                            return zc & (a != 0) & (a <= inf_bits)
+
+                        acc.note("underflow", limit, uf_mask, loc, at)
+                    if fmt.has_subnormals:
                         one = cm.dtype.type(1)
-                        sm = np.subtract(cm, one) < cm.dtype.type((1 << fmt.t) - 1)  # type: ignore[union-attr]
+                        sm = np.subtract(cm, one) < cm.dtype.type((1 << fmt.t) - 1)
                         sb = int(np.count_nonzero(sm))
                         acc.subnormal += sb
                         if sb:
-                            acc.note("subnormal", limit, lambda sm=sm: sm, loc, at)
+                            def sb_mask(sm: np.ndarray = sm) -> np.ndarray:
+                                return sm
+
+                            acc.note("subnormal", limit, sb_mask, loc, at)
             # ----- errors of the compared elements
             compared = k - nbad
             acc.compared += compared
@@ -774,7 +794,8 @@ def _scan_block(
                     sq[bad] = 0.0
                     acc.sum_x2 += float(np.einsum("i,i->", sq, sq))
                 if codes is not None:
-                    if fmt.bits <= 16:  # type: ignore[union-attr]
+                    assert fmt is not None  # codes come from a plain format
+                    if fmt.bits <= 16:
                         ue = np.take(_inv_ulp_table(fmt), ci, out=sq, mode="wrap")
                         np.multiply(ue, err, out=ue)
                     else:
@@ -1334,7 +1355,7 @@ def _first_requests(fparts: list[FormatPartial]) -> list[_Request]:
     return out
 
 
-def _targets_for(pending: list[_Request], n_entries: int) -> tuple[tuple[tuple[int, int, int, int], ...], dict]:
+def _targets_for(pending: list[_Request], n_entries: int) -> tuple[_Targets, dict]:
     """Per entry, the distinct ranges to look into: (low, high, shift, bins); bins == 0 asks
     for the values, else for counts over ``bins`` sub-ranges of 2^shift patterns each."""
     per: list[list[tuple[int, int, int, int]]] = [[] for _ in range(n_entries)]
@@ -1355,7 +1376,7 @@ def _targets_for(pending: list[_Request], n_entries: int) -> tuple[tuple[tuple[i
     return tuple(tuple(p) for p in per), index
 
 
-def _refine(pending: list[_Request], index: dict, targets: tuple, more: BlockPartial,
+def _refine(pending: list[_Request], index: dict, targets: _Targets, more: BlockPartial,
             resolved: list[dict[int, float]]) -> list[_Request]:
     out: list[_Request] = []
     for j, k, lo_p, hi_p, rank, count in pending:
@@ -1396,7 +1417,6 @@ def _quantile_values(
         return None, None
     out: list[float] = []
     cum = np.cumsum(fp.rel_hist) if fp.rel_hist is not None else np.zeros(1, np.int64)
-    zeros = fp.exact  # compared elements with zero error come first in sorted order
 
     def stat(k: int) -> float:
         known = _known(fp, cum, k)
