@@ -48,7 +48,7 @@ def _float_dtype_of(arr: np.ndarray) -> np.dtype:
         )
     raise UnsupportedInputError(
         f"cannot cast {dt} data: expected real numbers (float, ml_dtypes float, int or bool "
-        f"arrays); got dtype {dt!r}"
+        f"arrays); got {dt}"
     )
 
 
