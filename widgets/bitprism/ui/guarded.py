@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import functools
-from typing import Any, Callable
+from contextlib import contextmanager
+from typing import Any, Callable, Iterator
 
 from ..errors import ParseError
 
-__all__ = ["guarded", "message_for"]
+__all__ = ["BatchedRefresh", "guarded", "message_for"]
 
 
 def message_for(exc: BaseException) -> str:
@@ -29,3 +30,27 @@ def guarded(method: Callable[..., Any]) -> Callable[..., Any]:
             return None
 
     return wrapper
+
+
+class BatchedRefresh:
+    """``_bulk()``: change several traits with one ``_refresh()`` at the end.
+
+    The widget sets ``self._suspend = 0`` in ``__init__`` and skips work in its observers while
+    ``self._suspend`` is non-zero.
+    """
+
+    _suspend: int
+
+    def _refresh(self) -> None:  # pragma: no cover - every widget defines its own
+        raise NotImplementedError
+
+    @contextmanager
+    def _bulk(self) -> Iterator[None]:
+        self._suspend += 1
+        try:
+            with self.hold_trait_notifications():  # type: ignore[attr-defined]
+                yield
+        finally:
+            self._suspend -= 1
+        if not self._suspend:
+            self._refresh()

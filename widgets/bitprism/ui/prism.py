@@ -10,14 +10,13 @@ area, never raised into the notebook.
 from __future__ import annotations
 
 import functools
-from contextlib import contextmanager
-from typing import Any, Iterator
+from typing import Any
 
 import ipywidgets as W
 from traitlets import Any as AnyTrait
 from traitlets import Bool, Int, List, TraitError, Unicode, observe, validate
 
-from .guarded import guarded, message_for
+from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError, ParseError
 from ..formats import FORMATS, Format, get_format
 from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare
@@ -113,7 +112,7 @@ class _Band:
         self.implicit.description = "0" if kind in (0, 1) else ("1" if kind == 2 else "·")
 
 
-class Prism(CaseFileMixin, W.VBox):
+class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
     """One value refracted into several formats: bit tiles, fields, stored value, errors.
 
     ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
@@ -225,18 +224,6 @@ class Prism(CaseFileMixin, W.VBox):
             self.expression_input,
             self.evaluation_html,
         ]
-
-    @contextmanager
-    def _bulk(self) -> Iterator[None]:
-        """Change several traits with one refresh at the end."""
-        self._suspend += 1
-        try:
-            with self.hold_trait_notifications():
-                yield
-        finally:
-            self._suspend -= 1
-        if not self._suspend:
-            self._refresh()
 
     # ----- validation ------------------------------------------------------------------------
     @validate("value")

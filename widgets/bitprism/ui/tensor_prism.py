@@ -19,15 +19,14 @@ import base64
 import functools
 import io
 import re
-from contextlib import contextmanager
-from typing import Any, Iterator
+from typing import Any
 
 import ipywidgets as W
 import numpy as np
 from traitlets import Any as AnyTrait
 from traitlets import Bool, Int, List, Tuple, Unicode, observe, validate
 
-from .guarded import guarded, message_for
+from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError
 from ..formats import FORMATS, Format, get_format
 from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
@@ -99,7 +98,7 @@ def _push(widget: W.Widget, changes: dict[str, Any]) -> None:
     send({"method": "update", "state": state, "buffer_paths": []})
 
 
-class TensorPrism(CaseFileMixin, W.VBox):
+class TensorPrism(BatchedRefresh, CaseFileMixin, W.VBox):
     """A 2-D window (up to 32 x 32 cells) of any tensor, coloured by a chosen view.
 
     ``TensorPrism(data, formats=["bfloat16", "float8_e4m3fn"], view="cast")``. ``data`` is
@@ -297,18 +296,6 @@ class TensorPrism(CaseFileMixin, W.VBox):
             W.HBox([self.grid, self.nav_box]),
             self.prism_box,
         ]
-
-    @contextmanager
-    def _bulk(self) -> Iterator[None]:
-        """Change several traits with one refresh at the end."""
-        self._suspend += 1
-        try:
-            with self.hold_trait_notifications():
-                yield
-        finally:
-            self._suspend -= 1
-        if not self._suspend:
-            self._refresh()
 
     # ----- derived state ---------------------------------------------------------------------
     @property
