@@ -8,9 +8,13 @@ The kernel works on the source's IEEE bit patterns as unsigned integers, in chun
   the significand and carries into the exponent in one integer add (a carry out of the
   largest binade lands on the overflow code). The exponent re-bias is folded into the same add.
   Overflow is then a clamp, since every overflowing pattern maps above the largest code.
-* **subnormal results and underflow** (source exponent below the target's emin): the shift
-  grows by the exponent deficit, so those elements are gathered and rounded with a per-element
-  shift at 64-bit width, then scattered back.
+* **subnormal results and underflow** (below the target's emin): adding 2^(emin - t + t_src)
+  to |x| in the source's float type makes the hardware round |x| to the target's subnormal step;
+  these codes saturate at the smallest normal code and are added to the normal path (which
+  carries the matching offset), so both paths blend without a select or a gather. The other
+  rounding directions correct the hardware's roundTiesToEven by one step from the exact
+  remainder. bfloat16/tf32 from float32 (same exponent field) need none of this.
+* **float32 into formats of <= 8 bits** go through a 2^17-entry table instead (``encode_table``).
 * **Inf/NaN inputs** and negative inputs to unsigned formats are rare and fixed up by index.
 
 The scalar reference for every rule is ``scalar.encode_exact``; tests hold the two together.
@@ -283,55 +287,15 @@ def _directed_low(
             np.add(b, np.multiply(up, side, dtype=b.dtype), out=b)
 
 
-def _low_codes(plan: _Plan, bits: np.ndarray, options: CastOptions, rng) -> np.ndarray:
-    """Exact codes for elements whose results are subnormal, zero or (no-zero formats) the
-    smallest value: per-element shift at 64-bit width."""
-    src, fmt = plan.src, plan.fmt
-    t = fmt.significand_bits
-    x = bits.astype(np.uint64)
-    neg = (x >> np.uint64(src.width - 1)).astype(bool)
-    a = x & np.uint64(src.abs_mask)
-    if not fmt.has_zero:
-        out = np.zeros(a.size, np.uint64)
-        if fmt.has_nan:
-            out[a == 0] = nan_input_code(fmt, False)
-        return out
-    e = a >> np.uint64(src.t)
-    m = (a & np.uint64((1 << src.t) - 1)) | (np.minimum(e, 1) << np.uint64(src.t))
-    ef = np.maximum(e, np.uint64(1))
-    sh = np.uint64(plan.d) + (np.uint64(fmt.emin + src.bias) - ef)
-    # Shifts past 63 keep only what decides the result: for the nearest modes and directed
-    # modes, M < 2^(t_src+1) <= 2^(sh-1) already means "below half, nonzero" at sh = t_src + 2;
-    # for stochastic, the low bits are dropped (probability exact to 2^-63).
-    cap = np.uint64(min(63, src.t + 2) if plan.mode != "stochastic" else 63)
-    over = sh > cap
-    if over.any():
-        if plan.mode == "stochastic":
-            m = np.where(over, m >> np.minimum(sh - cap, np.uint64(63)), m)
-        sh = np.minimum(sh, cap)
-    one = np.uint64(1)
-    half = one << (sh - one)
-    mode = plan.mode
-    if mode == "roundTiesToEven":
-        q = (m + half - one + ((m >> sh) & one)) >> sh
-    elif mode == "roundTiesToAway":
-        q = (m + half) >> sh
-    elif mode == "roundTowardZero":
-        q = m >> sh
-    elif mode in ("roundTowardPositive", "roundTowardNegative"):
-        up = ~neg if mode == "roundTowardPositive" else neg
-        q = (m + ((one << sh) - one) * up.astype(np.uint64)) >> sh
-    else:
-        r = _random_bits(rng, m.size, np.uint64)
-        q = (m + (r & ((one << sh) - one))) >> sh
-    if plan.d == 0:  # the shift can be 0 here (exact); the formulas above assume >= 1
-        q = np.where(sh == 0, m, q)
-    if options.subnormals == "flush":
-        q[q < np.uint64(1 << t)] = 0
-    if fmt.signed:
-        keep_sign = neg & (q != 0) if not fmt.has_negative_zero else neg
-        q |= keep_sign.astype(np.uint64) << np.uint64(fmt.bits - 1)
-    return q
+def _below_smallest_codes(plan: _Plan, bits: np.ndarray) -> np.ndarray:
+    """Codes for elements below the smallest value of a format without zero (E8M0): there is
+    nothing smaller to round to, so they become the smallest value; zero itself becomes NaN."""
+    fmt = plan.fmt
+    a = bits.astype(np.uint64) & np.uint64(plan.src.abs_mask)
+    out = np.zeros(a.size, np.uint64)
+    if fmt.has_nan:
+        out[a == 0] = nan_input_code(fmt, False)
+    return out
 
 
 def _special_codes(plan: _Plan, bits: np.ndarray, options: CastOptions) -> np.ndarray:
@@ -383,7 +347,7 @@ def encode_bits(
         c = _chunk_codes(plan, chunk, a, b, c, side, rng)
         if not (plan.blend or plan.same_range) and a.min() < low_bits:
             idx = np.flatnonzero(a < low_bits)
-            c[idx] = _low_codes(plan, chunk[idx], options, rng)
+            c[idx] = _below_smallest_codes(plan, chunk[idx])
         if a.max() >= inf_bits:
             idx = np.flatnonzero(a >= inf_bits)
             c[idx] = _special_codes(plan, chunk[idx], options)
