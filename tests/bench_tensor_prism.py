@@ -60,7 +60,7 @@ def main() -> None:
     tp = TensorPrism(data, formats=FORMATS, rows=32, cols=32)
     print(f"construction (incl. whole-tensor summary scan, counts only): "
           f"{time.perf_counter() - t0:.2f} s")
-    for view in ("cast", "value", "error"):
+    for view in ("cast", "value", "error", "class", "compare"):
         tp.view = view
         tp.row_offset = tp.col_offset = 0
         for k in range(3):  # warm up

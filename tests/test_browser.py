@@ -308,6 +308,26 @@ def _tensor_prism_steps(page: Any, expect: Any, out: Path, report: dict[str, Any
     page.screenshot(path=str(out / "05-tensorprism-next-nan.png"))
     _element_shot(page, tp, out / "tensorprism-next-nan.png")
 
+    # ----- value view: labels and colours arrive as short cell updates ----------------------
+    # (only the traits that changed, no buffer_paths; a colour is a reference to a shared
+    # style with a short model id). 7e4 is the window's largest |x|, so every other finite
+    # cell is on the first step of the scale: the sign's tint at 1/3 strength.
+    from bitprism.render.grid_html import PAINTS, short_label
+
+    view = tp.locator(".widget-dropdown", has=page.locator("label", has_text="view"))
+    view.locator("select").first.select_option("value")
+    x = float(acts[0, 0])
+    first = cells.nth(0)
+    expect(first).to_have_text(short_label(x))
+    fill = PAINTS["v-1" if x < 0 else "v+1"].background
+    rgb = ", ".join(str(int(fill[k : k + 2], 16)) for k in (1, 3, 5))
+    expect(first).to_have_css("background-color", f"rgb({rgb})")
+    value, bits = (first.get_attribute("title") or "").split(" = ")
+    assert float.fromhex(value) == x  # exact: hex float, checked against numpy's float32
+    assert int(bits, 16) == int(acts[0:1, 0].view(np.uint32)[0])
+    expect(cells.filter(has_text="NaN")).to_have_count(int(np.isnan(acts).sum()))
+    page.screenshot(path=str(out / "05b-tensorprism-value-view.png"))
+
 
 # ----- saved notebooks: what an offline reader of the exported page sees ---------------------
 @pytest.fixture(scope="module")

@@ -219,6 +219,42 @@ def test_views_value_error_compare() -> None:
     assert _cell(tp, 2, 3).description == "NaN" and _cell(tp, 0, 0).description == "0"
 
 
+def test_cell_updates_are_small_and_complete(monkeypatch: pytest.MonkeyPatch) -> None:
+    """A page pan of a 32 x 32 window sends one short update per changed cell: under the
+    128 KB target in every view (JSON as jupyter_client packs it: default separators,
+    ensure_ascii=False), no empty buffer_paths, colours as references to the shared styles;
+    and the messages carry each cell's state exactly."""
+    from ipywidgets import Widget
+
+    sent: list[tuple[Widget, dict]] = []
+    monkeypatch.setattr(Widget, "_send", lambda self, msg, buffers=None: sent.append((self, msg)))
+    a = (np.random.default_rng(0).standard_normal((64, 96)) * 100).astype(np.float32)  # invented
+    tp = TensorPrism(a, formats=["bfloat16", "float16", "float8_e4m3fn"], rows=32, cols=32)
+    other = TensorPrism(a[:4, :4], formats=FMTS)
+    ids = [s.model_id for s in tp._styles.values()] + [s.model_id for s in other._styles.values()]
+    assert len(set(ids)) == len(ids) and all(len(i) < 32 for i in ids)
+    refs = {f"IPY_MODEL_{s.model_id}": s for s in tp._styles.values()}
+    cells = {id(c): c for c in tp._cells}
+    for view in ("value", "class", "cast", "error", "compare"):
+        tp.view = view
+        tp.col_offset = 0
+        sent.clear()
+        tp.pan("page-right")
+        size = sum(len(json.dumps(m, ensure_ascii=False).encode("utf-8")) for _, m in sent)
+        assert size < 128 * 1024, (view, size)
+        changed = [(w, m) for w, m in sent if id(w) in cells]
+        assert len(changed) == len({id(w) for w, _ in changed}) > 0  # one message per cell
+        for w, m in changed:
+            assert m["method"] == "update" and "buffer_paths" not in m
+            st = m["state"]
+            assert set(st) <= {"description", "tooltip", "style"}
+            if "style" in st:
+                assert refs[st["style"]] is w.style
+            for k in ("description", "tooltip"):
+                if k in st:
+                    assert st[k] == getattr(w, k)
+
+
 def test_torch_bfloat16_input() -> None:
     torch = pytest.importorskip("torch")
     t = torch.linspace(-3, 3, 600).reshape(20, 30).to(torch.bfloat16)

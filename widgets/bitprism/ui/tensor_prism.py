@@ -18,7 +18,9 @@ from __future__ import annotations
 import base64
 import functools
 import io
+import itertools
 import re
+import uuid
 from typing import Any
 
 import ipywidgets as W
@@ -69,7 +71,20 @@ _KIND_WORDS = {"nan": "NaN", "inf": "Inf", "overflow": "overflow", "underflow": 
 _SCOPES = ("tensor", "slice")
 _SUMMARY_QUANTILES = ("auto", "exact", "histogram", "none")
 
+# Model ids of the shared cell styles: a random prefix per process, then a counter.
+_STYLE_ID_PREFIX = uuid.uuid4().hex[:10]
+_style_ids = itertools.count()
 
+
+def _style_model_id() -> str:
+    """A short model id for a shared cell style (passed as ipywidgets' ``model_id``).
+
+    Every cell whose colour changes is sent ``"IPY_MODEL_<id>"``: with ipywidgets' default
+    32-hex-digit ids that reference was about a third of a cell's update. The counter keeps
+    these ids unique in this kernel; the 40 random bits keep them apart from other kernels' ids
+    (widget state saved in a notebook); ordinary widgets' 32-digit ids cannot equal them.
+    """
+    return f"{_STYLE_ID_PREFIX}{next(_style_ids):x}"
 
 
 def _model_ref(w: W.Widget) -> str:
@@ -82,7 +97,10 @@ def _push(widget: W.Widget, changes: dict[str, Any]) -> None:
     A 32 x 32 window has 1024 cells; the public path (``hold_sync`` and one ``setattr`` per
     trait) costs several times the whole refresh budget in trait machinery. Cells have no
     observers of their own, so their new values are stored directly and one update message is
-    sent. Falls back to the public path if ipywidgets' internals ever differ.
+    sent. The message leaves out ``buffer_paths`` (``send_state`` always adds an empty one, 20
+    bytes a cell): these values are text and model references, never binary, and both the
+    front-end (``@jupyter-widgets/base``) and ipywidgets read a missing ``buffer_paths`` as
+    empty. Falls back to the public path if ipywidgets' internals ever differ.
     """
     values = getattr(widget, "_trait_values", None)
     send = getattr(widget, "_send", None)
@@ -95,7 +113,7 @@ def _push(widget: W.Widget, changes: dict[str, Any]) -> None:
     for k, v in changes.items():
         values[k] = v
         state[k] = _model_ref(v) if isinstance(v, W.Widget) else v
-    send({"method": "update", "state": state, "buffer_paths": []})
+    send({"method": "update", "state": state})
 
 
 class TensorPrism(BatchedRefresh, CaseFileMixin, W.VBox):
@@ -157,7 +175,8 @@ class TensorPrism(BatchedRefresh, CaseFileMixin, W.VBox):
         self._slider_axes: tuple[int, ...] = ()
         self._origin: tuple[int, ...] | None = None
         self._styles = {
-            k: W.ButtonStyle(button_color=p.background, text_color=p.text)
+            k: W.ButtonStyle(button_color=p.background, text_color=p.text,
+                             model_id=_style_model_id())
             for k, p in PAINTS.items()
         }
         self._cell_layout = W.Layout(width="40px", height="24px", padding="0", margin="0")
