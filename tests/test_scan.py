@@ -37,9 +37,10 @@ def dtype_of(name: str) -> np.dtype:
     return np.dtype(np.float16) if name == "float16" else np.dtype(getattr(ml_dtypes, name))
 
 
-def wide_data(n: int = 20000, seed: int = 0, dtype=np.float32) -> np.ndarray:
+def wide_data(n: int = 20000, seed: int = 0, dtype=np.float32, low: float = -36, high: float = 36) -> np.ndarray:
+    """Invented data: normal samples scaled by 2^uniform(low, high), with NaN, ±Inf and ±0."""
     rng = np.random.default_rng(seed)
-    x = (rng.standard_normal(n) * np.exp2(rng.uniform(-36, 36, n))).astype(dtype)
+    x = (rng.standard_normal(n) * np.exp2(rng.uniform(low, high, n))).astype(dtype)
     x[::97] = np.nan
     x[1::101] = np.inf
     x[2::103] = -np.inf

@@ -15,6 +15,8 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from ..errors import BitprismError
+
 __all__ = ["range_chart"]
 
 _BAND = {
@@ -71,9 +73,14 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
         width, row_height: figure size in inches (height grows with the number of formats).
         log: logarithmic count axis (rare exponents stay visible).
     """
+    h = result.histogram
+    if not h.collected:
+        raise BitprismError(
+            "this scan left out the binary exponents the range chart draws (a counts-only scan "
+            "does unless asked); scan again with exponents=True"
+        )
     from matplotlib.figure import Figure
 
-    h = result.histogram
     rows = result.formats
     fig = Figure(figsize=(width, 0.9 + row_height * max(1, len(rows))), layout="constrained")
     axes = fig.subplots(max(1, len(rows)), 1, sharex=True, squeeze=False)[:, 0]

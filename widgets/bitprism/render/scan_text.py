@@ -83,6 +83,8 @@ def header_lines(result: Any) -> list[str]:
     ]
     if h.exponents:
         lines.append(f"  binary exponents {h.exponents[0]} .. {h.exponents[-1]}")
+    elif not h.collected:
+        lines.append("  binary exponents not collected (a counts-only scan leaves them out)")
     opts = f"  {result.rounding}, overflow={result.overflow}, subnormals={result.subnormals}"
     if result.scale is not None:
         opts += f", scale={result.scale!r} (errors against the scaled data)"

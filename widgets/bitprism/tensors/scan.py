@@ -44,7 +44,10 @@ Quantiles (``quantiles=``):
 * ``False``: counts only. Rounding is monotone, so every class is a range of ``|x|``: the
   thresholds (smallest magnitude that overflows, smallest that does not underflow, smallest
   whose result is normal) are found once per format by rounding a few scalars exactly, and the
-  data is only compared with them. Needs a deterministic rounding direction.
+  data is only compared with them. Needs a deterministic rounding direction. With plain,
+  sign-symmetric formats the comparisons are bit-pattern counts (``counts_only``), compiled
+  with numba when installed and spread over up to ``MAX_THREADS`` threads; the exponent
+  histogram is left out unless ``exponents=True``.
 
 Memory and scale: the tensor is read in blocks of ``BLOCK`` elements (processed in cache-sized
 pieces), so a ``np.memmap`` is never loaded whole. Each block gives a ``BlockPartial`` whose
@@ -74,6 +77,9 @@ block's scale. ``rounding``, ``overflow`` and ``subnormals`` apply to plain form
 from __future__ import annotations
 
 import math
+import os
+from collections import deque
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import lru_cache
 from types import MappingProxyType
@@ -87,6 +93,7 @@ from ..numerics.codes import decode, encode, value_table
 from ..numerics.inspect import ulp
 from ..numerics.kernel import table_codes, table_eligible, table_index
 from ..numerics.options import CastOptions
+from . import counts_only
 from .partials import (
     EXP_OFFSET,
     REL_BASE,
@@ -114,9 +121,11 @@ __all__ = [
 ]
 
 BLOCK = 1 << 20  # elements per partial result
+COUNT_BLOCK = 1 << 22  # ... of a counts-only scan (tiny partials: fewer, larger blocks)
 _SUB = 1 << 16  # elements per cache-sized piece inside a block
 KEEP_VALUES = 1 << 16  # exact quantiles in one pass up to this many elements (kept values)
 PROGRESS_MIN = 1 << 22  # show a progress bar from this many elements (times passes)
+MAX_THREADS = 4  # worker threads of a counts-only scan (at most the cores available)
 WHERE_KINDS = ("nan", "inf", "overflow", "underflow", "subnormal", "largest_error")
 _QUANTILES = ("exact", "histogram", False)
 _PERCENTILES = (0.5, 0.99)
@@ -254,6 +263,7 @@ class _Spec:
     carrier32: bool
     seed: int | None
     targets: _Targets | None = None  # refinement pass
+    exponents: bool = True  # collect the binary-exponent histogram
 
     @property
     def hooks(self) -> bool:
@@ -432,6 +442,8 @@ def _scan_block(
     "largest error" list, so they are not looked at. The merged result is unchanged.
     """
     flat = np.asarray(values).reshape(-1)
+    if counts_only.eligible(spec):
+        return counts_only.count_block(flat, loc, spec)
     limit = spec.limit
     full = spec.mode is not False
     collect = spec.targets is not None
@@ -898,7 +910,8 @@ def _update_top(acc: _Acc, err: np.ndarray, limit: int, loc: _Locator, at: int) 
 class ExponentHistogram:
     """Binary exponents of the (scaled) data: ``counts[i]`` values have
     ``floor(log2|x|) == exponents[i]`` (normal values only; populated exponents, ascending),
-    plus the zero, subnormal, Inf and NaN buckets."""
+    plus the zero, subnormal, Inf and NaN buckets. A counts-only scan leaves the exponents out
+    unless asked (``collected`` is then False and both tuples are empty)."""
 
     exponents: tuple[int, ...]
     counts: tuple[int, ...]
@@ -906,6 +919,7 @@ class ExponentHistogram:
     subnormal: int
     inf: int
     nan: int
+    collected: bool = True  # False: a counts-only scan left the binary exponents out
 
     def count(self, exponent: int) -> int:
         try:
@@ -1114,8 +1128,11 @@ def _as_input(data: Any) -> Any:
     return as_array(data)
 
 
-def _numpy_blocks(arr: np.ndarray, spec: _Spec) -> Iterator[tuple[np.ndarray, _Locator, int]]:
-    """(values, locator, segment length) for each block of a numpy array, in order."""
+def _numpy_blocks(
+    arr: np.ndarray, spec: _Spec, block: int = BLOCK
+) -> Iterator[tuple[np.ndarray, _Locator, int]]:
+    """(values, locator, segment length) for each block of ``block`` elements (whole rows of
+    axis 0 for a strided array) of a numpy array, in order."""
     n = arr.size
     if n == 0:
         return
@@ -1136,7 +1153,7 @@ def _numpy_blocks(arr: np.ndarray, spec: _Spec) -> Iterator[tuple[np.ndarray, _L
                 for j in range(0, last, piece)
             ]
     else:
-        ranges = [(s, min(s + BLOCK, n), _SUB) for s in range(0, n, BLOCK)]
+        ranges = [(s, min(s + block, n), _SUB) for s in range(0, n, block)]
     if contiguous:
         flat = a.reshape(-1)
         for s, e, seg in ranges:
@@ -1147,10 +1164,10 @@ def _numpy_blocks(arr: np.ndarray, spec: _Spec) -> Iterator[tuple[np.ndarray, _L
             yield np.ascontiguousarray(a[s:e]), _Locator(s), seg
         return
     # not C-contiguous: read whole rows of axis 0 (copies bounded by the block, or one row)
-    rows_per = max(1, BLOCK // row)
+    rows_per = max(1, block // row)
     for r in range(0, a.shape[0], rows_per):
-        block = np.ascontiguousarray(a[r : r + rows_per]).reshape(-1)
-        yield block, _Locator(r * row), last if spec.hooks else _SUB
+        rows = np.ascontiguousarray(a[r : r + rows_per]).reshape(-1)
+        yield rows, _Locator(r * row), last if spec.hooks else _SUB
 
 
 def _progress_bar(total: int, enabled: bool, desc: str) -> Any:
@@ -1161,9 +1178,52 @@ def _progress_bar(total: int, enabled: bool, desc: str) -> Any:
     return tqdm(total=total, unit="el", unit_scale=True, desc=desc, leave=False)
 
 
-def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
+def _threads() -> int:
+    """Worker threads for a counts-only scan: the compiled kernel releases the GIL."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not on every platform
+        cores = os.cpu_count() or 1
+    return max(1, min(MAX_THREADS, cores))
+
+
+def _run_threads(arr: np.ndarray, spec: _Spec, bar: Any, workers: int) -> BlockPartial | None:
+    """Blocks scanned on ``workers`` threads, at most one more block in flight (so a memmap
+    or a strided input is never read far ahead), merged as they finish: the merge is
+    associative and commutative, so the result equals the sequential one."""
     out: BlockPartial | None = None
-    for values, loc, seg in _numpy_blocks(arr, spec):
+    pending: deque[tuple[Future[BlockPartial], int]] = deque()
+
+    def take() -> None:
+        nonlocal out
+        fut, k = pending.popleft()
+        part = fut.result()
+        out = part if out is None else out.merge(part)
+        if bar is not None:
+            bar.update(k)
+
+    with ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan") as pool:
+        try:
+            for values, loc, seg in _numpy_blocks(arr, spec, COUNT_BLOCK):
+                pending.append((pool.submit(_scan_block, values, loc, spec, seg), values.size))
+                if len(pending) > workers:
+                    take()
+            while pending:
+                take()
+        finally:
+            for fut, _ in pending:
+                fut.cancel()
+    return out
+
+
+def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
+    counting = counts_only.eligible(spec)
+    if counting and arr.size > COUNT_BLOCK:
+        workers = _threads()
+        if workers > 1:
+            return _run_threads(arr, spec, bar, workers)
+    out: BlockPartial | None = None
+    for values, loc, seg in _numpy_blocks(arr, spec, COUNT_BLOCK if counting else BLOCK):
         floors = None
         if out is not None and spec.targets is None:
             floors = tuple(
@@ -1255,6 +1315,7 @@ def scan(
     quantiles: Union[str, bool] = "exact",
     where_limit: int = 10,
     seed: int | None = None,
+    exponents: bool | None = None,
 ) -> ScanResult:
     """What happens to ``data`` in each of ``formats``: counts, errors and where they are.
 
@@ -1268,15 +1329,24 @@ def scan(
         progress: show a ``tqdm.auto`` bar for inputs over ``PROGRESS_MIN`` elements.
         quantiles: ``"exact"``, ``"histogram"`` or ``False`` (counts only).
         where_limit: how many indices ``where()`` keeps per kind.
+        exponents: collect the binary-exponent histogram (the range chart needs it). ``None``
+            (default): collected unless ``quantiles=False``, where leaving it out saves a
+            third of the time of a counts-only scan.
     """
     options = CastOptions(rounding, overflow, subnormals, seed)  # type: ignore[arg-type]
     if quantiles not in _QUANTILES or quantiles is True:
         raise BitprismError(f"quantiles must be 'exact', 'histogram' or False; got {quantiles!r}")
     if quantiles is False and options.rounding == "stochastic":
         raise BitprismError(
-            "quantiles=False counts by thresholds on |x|, which needs a deterministic rounding; "
+            "a counts-only scan (quantiles=False, or --quantiles none) counts by thresholds on |x|, "
+            "which needs a deterministic rounding; "
             "stochastic rounding needs the full scan (quantiles='histogram' or 'exact')"
         )
+    if exponents is None:
+        exponents = quantiles is not False
+    elif not isinstance(exponents, (bool, np.bool_)):
+        raise BitprismError(f"exponents must be True, False or None, got {exponents!r}")
+    exponents = bool(exponents)
     if isinstance(where_limit, bool) or not isinstance(where_limit, int) or where_limit < 0:
         raise BitprismError(f"where_limit must be a non-negative int, got {where_limit!r}")
     if scale is not None:
@@ -1300,7 +1370,8 @@ def scan(
         seed = int(np.random.SeedSequence().generate_state(1, np.uint64)[0] >> np.uint64(1))
     size = int(np.prod(arr.shape, dtype=np.int64)) if arr.shape else 1
     keep = quantiles == "exact" and size <= KEEP_VALUES
-    spec = _Spec(entries, options, scale, quantiles, where_limit, keep, carrier32, seed)
+    spec = _Spec(entries, options, scale, quantiles, where_limit, keep, carrier32, seed,
+                 exponents=exponents)
     passes = 2 if quantiles == "exact" and not keep else 1
     bar = None if dask_input else _progress_bar(size * passes, progress, "scan")
     try:
@@ -1458,7 +1529,7 @@ def _build(
         below = slice(0, emin + EXP_OFFSET)
         sub_extra = int(exps[below].sum())
         exps[below] = 0
-    populated = np.flatnonzero(exps)
+    populated = np.flatnonzero(exps) if spec.exponents else np.zeros(0, np.intp)
     hist = ExponentHistogram(
         tuple(int(i) - EXP_OFFSET for i in populated),
         tuple(int(exps[i]) for i in populated),
@@ -1466,6 +1537,7 @@ def _build(
         inp.carrier_subnormal + sub_extra,
         inp.pos_inf + inp.neg_inf,
         inp.nan,
+        collected=spec.exponents,
     )
     has_values = inp.n > inp.nan
     lo = inp.min if has_values else None

@@ -619,7 +619,8 @@ class TensorPrism(BatchedRefresh, CaseFileMixin, W.VBox):
             self._summary_cache.clear()  # one summary kept: tensors can be large
             self._summary_cache[key] = scan(
                 target, self.format_objects, opts.rounding, opts.overflow, opts.subnormals,
-                progress=False, quantiles=False if q == "none" else q, seed=opts.seed)
+                progress=False, quantiles=False if q == "none" else q, seed=opts.seed,
+                exponents=True)  # the range chart draws the exponent histogram
         self._summary_key = key
         result = self._summary_cache[key]
         note = ""

@@ -1,0 +1,278 @@
+"""Tests of the counts-only scan path (``tensors.counts_only``) and its counting kernel
+(``tensors.pattern_counts``).
+
+The kernel and its numpy fallback are checked against plain Python integer counts on every
+kind of IEEE pattern; the counts-only scan against the general scan path (the block scan that
+casts nothing and compares with numpy, used without numba) and against ml_dtypes / numpy casts
+(the references for these formats).
+"""
+
+from __future__ import annotations
+
+import math
+
+import ml_dtypes
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import bitprism.tensors.counts_only as counts_only
+import bitprism.tensors.pattern_counts as pc
+import bitprism.tensors.scan as scan_mod
+from bitprism.errors import BitprismError
+from bitprism.numerics.options import CastOptions
+from bitprism.tensors.scan import scan
+from test_scan import wide_data
+
+FORMATS = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float6_e3m2fn", "float4_e2m1fn")
+needs_numba = pytest.mark.skipif(not pc.compiled_available(), reason="numba not installed")
+
+# IEEE 754-2008 §3.4 binary32 / binary64 encodings (common practice): sign, biased exponent,
+# trailing significand.
+F32 = dict(t=23, mask=0x7FFFFFFF, inf=0x7F800000, sign=0x80000000, dtype=np.uint32)
+F64 = dict(t=52, mask=0x7FFFFFFFFFFFFFFF, inf=0x7FF0000000000000, sign=0x8000000000000000,
+           dtype=np.uint64)
+
+
+def special_patterns(f: dict) -> list[int]:
+    """±0, the smallest and largest subnormal, the smallest normal, 1.0, the largest finite,
+    ±Inf, and NaNs (quiet and signalling payloads) of both signs."""
+    t, inf, sign = f["t"], f["inf"], f["sign"]
+    one = (inf >> 1) & ~((1 << t) - 1)  # exponent field = bias: the pattern of 1.0
+    pos = [0, 1, (1 << t) - 1, 1 << t, one, inf - 1, inf, inf + 1, inf | (1 << (t - 1)), sign - 1]
+    return pos + [p | sign for p in pos]
+
+
+def py_counts(bits: np.ndarray, f: dict, cuts: list[int]) -> dict:
+    """The kernel's numbers by plain Python integer arithmetic (one element at a time)."""
+    vals = [int(v) for v in bits]
+    mask, inf, sign = f["mask"], f["inf"], f["sign"]
+    pos = [v for v in vals if 0 < v < inf]
+    neg = [v for v in vals if sign < v < sign + inf]
+    return dict(
+        at_least=[sum(1 for v in vals if v & mask >= c) for c in cuts],
+        pos_inf=sum(1 for v in vals if v == inf),
+        pos_max=max(pos, default=None), pos_min=min(pos, default=None),
+        neg_max=max(neg, default=None), neg_min=min(neg, default=None),
+        exponents=np.bincount([(v & mask) >> f["t"] for v in vals], minlength=(inf >> f["t"]) + 1),
+    )
+
+
+def check_counts(bits: np.ndarray, f: dict, cuts: list[int], compiled: bool) -> None:
+    got = pc.block_counts(bits, f["t"], np.array(cuts, f["dtype"]), True, compiled=compiled)
+    want = py_counts(bits, f, cuts)
+    assert [int(v) for v in got.at_least] == want["at_least"]
+    for k in ("pos_inf", "pos_max", "pos_min", "neg_max", "neg_min"):
+        assert getattr(got, k) == want[k], k
+    assert got.exponents is not None and np.array_equal(got.exponents, want["exponents"])
+
+
+@pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
+@pytest.mark.parametrize("n", [1, 7, 2047, 2048, 2049, 5000])
+@pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
+def test_block_counts_on_every_kind_of_pattern(f: dict, n: int, compiled: bool) -> None:
+    if compiled and not pc.compiled_available():
+        pytest.skip("numba not installed")
+    rng = np.random.default_rng(n)
+    specials = special_patterns(f)
+    hi = int(f["sign"]) * 2
+    bits = rng.integers(0, hi, n, dtype=f["dtype"], endpoint=False)
+    bits[rng.integers(0, n, n // 2)] = rng.choice(np.array(specials, f["dtype"]), n // 2)
+    # cuts: 1, +Inf and just above it (NaN), the special magnitudes, random magnitudes
+    cuts = sorted({1, f["inf"], f["inf"] + 1} | {p & f["mask"] for p in specials if p & f["mask"]}
+                  | {int(c) for c in rng.integers(1, f["sign"], 9, dtype=f["dtype"])})
+    check_counts(bits, f, cuts, compiled)
+
+
+@needs_numba
+@pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
+def test_block_counts_chunks_without_specials(f: dict) -> None:
+    """Chunks of only zeros, only NaN, only one sign, or one binade: the kernel settles cuts
+    from the chunk's range there, so each case is held to the Python counts."""
+    inf, sign, t = f["inf"], f["sign"], f["t"]
+    one = (inf >> 1) & ~((1 << t) - 1)
+    cuts = sorted({1, 2, 1 << t, one, one + 5, inf - 1, inf, inf + 1, sign - 1})
+    cases = [
+        np.zeros(3000, f["dtype"]),
+        np.full(3000, inf + 3, f["dtype"]),
+        np.full(3000, sign | inf, f["dtype"]),
+        np.arange(one, one + 3000, dtype=f["dtype"]),
+        np.arange(one, one + 3000, dtype=f["dtype"]) | f["dtype"](sign),
+        np.concatenate([np.zeros(2048, f["dtype"]), np.arange(one, one + 2048, dtype=f["dtype"])]),
+    ]
+    for bits in cases:
+        check_counts(bits, f, cuts, True)
+
+
+@needs_numba
+@settings(max_examples=60, deadline=None)
+@given(
+    st.lists(st.integers(0, 2**32 - 1), min_size=1, max_size=5000),
+    st.lists(st.integers(1, 2**31), min_size=1, max_size=12, unique=True),
+)
+def test_block_counts_property(values: list[int], cuts: list[int]) -> None:
+    check_counts(np.array(values, np.uint32), F32, sorted(cuts), True)
+
+
+@pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
+def test_first_positions(compiled: bool) -> None:
+    if compiled and not pc.compiled_available():
+        pytest.skip("numba not installed")
+    rng = np.random.default_rng(3)
+    bits = rng.integers(0, 2**32, 10000, dtype=np.uint32)
+    for lo, hi, magnitude, need in [(0x3F000000, 0x40000000, True, 5), (0x80000000, 0x90000000, False, 3),
+                                    (0x7F800001, 0x80000000, True, 4), (5, 5, True, 3), (0, 2**32, False, 0)]:
+        key = bits & np.uint32(0x7FFFFFFF) if magnitude else bits
+        want = [i for i, v in enumerate(key.tolist()) if lo <= v < hi][:need]
+        got = pc.first_positions(bits, lo, hi, magnitude, need, compiled=compiled)
+        assert got.tolist() == want
+
+
+# ----- the counts-only scan against the general path and against the reference casts ---------
+
+
+def wide(n: int, seed: int, dtype=np.float32) -> np.ndarray:
+    """``test_scan.wide_data`` spread over 2^-140 .. 2^40 (float32 subnormals included)."""
+    return wide_data(n, seed, dtype, low=-140, high=40)
+
+
+def narrow(x: np.ndarray, dtype) -> np.ndarray:
+    with np.errstate(over="ignore"):  # out-of-range values become Inf: wanted here
+        return x.astype(dtype)
+
+
+def general(monkeypatch: pytest.MonkeyPatch, *args, **kw):
+    """The same scan on the general block path (the counts-only path switched off)."""
+    with monkeypatch.context() as m:
+        m.setattr(counts_only, "eligible", lambda spec: False)
+        return scan(*args, **kw)
+
+
+def assert_same(a, b, formats) -> None:
+    assert a.formats == b.formats
+    assert (a.size, a.min, a.max, a.absmax) == (b.size, b.min, b.max, b.absmax)
+    ha, hb = a.histogram, b.histogram
+    assert (ha.zero, ha.subnormal, ha.inf, ha.nan) == (hb.zero, hb.subnormal, hb.inf, hb.nan)
+    if ha.collected and hb.collected:
+        assert (ha.exponents, ha.counts) == (hb.exponents, hb.counts)
+    for kind in ("nan", "inf"):
+        assert all(np.array_equal(p, q) for p, q in zip(a.where(kind), b.where(kind))), kind
+    for name in formats:
+        for kind in ("overflow", "underflow", "subnormal"):
+            pa, pb = a.where(kind, name), b.where(kind, name)
+            assert all(np.array_equal(p, q) for p, q in zip(pa, pb)), (name, kind)
+
+
+def late(dtype) -> np.ndarray:
+    """Ones, the minimum in the middle, and near the end of 600k elements (past the first
+    converted pieces) a NaN, an Inf, and values that overflow or underflow float8_e4m3fn."""
+    x = np.ones(600_000, np.float32)
+    x[300_000] = -5.0
+    x[-9:] = [np.nan, np.inf, 7.0, 1000.0, 1e-9, 3e-3, np.nan, 2000.0, 1e-10]
+    return narrow(x, dtype)
+
+
+CASES = [
+    ("late specials, float16", lambda: late(np.float16), {}),
+    ("late specials, float32", lambda: late(np.float32), {}),
+    ("float32", lambda: wide(40000, 1), {}),
+    ("float64", lambda: wide(40000, 2, np.float64), {}),
+    ("float16 input", lambda: narrow(wide(40000, 3), np.float16), {}),
+    ("bfloat16 input", lambda: narrow(wide(40000, 4), ml_dtypes.bfloat16), {}),
+    ("int32 input", lambda: np.random.default_rng(5).integers(-2**31, 2**31, 40000, dtype=np.int32), {}),
+    ("scaled", lambda: wide(40000, 6), {"scale": 2.0**-20}),
+    ("ties away, saturate", lambda: wide(40000, 7), {"rounding": "roundTiesToAway", "overflow": "saturate"}),
+    ("toward zero, flush", lambda: wide(40000, 8), {"rounding": "roundTowardZero", "subnormals": "flush"}),
+    ("2-d, strided", lambda: wide(80000, 9).reshape(200, 400)[:, ::2], {}),
+    ("only NaN", lambda: np.full(5000, np.nan, np.float32), {}),
+    ("only -Inf and zeros", lambda: np.array([-np.inf, 0.0, -0.0] * 1000, np.float32), {}),
+    ("empty", lambda: np.zeros((0, 4), np.float32), {}),
+    ("0-d", lambda: np.float32(70000.0), {}),
+]
+
+
+@pytest.mark.parametrize("exponents", [False, True], ids=["no-exponents", "exponents"])
+@pytest.mark.parametrize("name,make,kw", CASES, ids=[c[0] for c in CASES])
+def test_counts_only_equals_general_path(monkeypatch, name, make, kw, exponents) -> None:
+    x = make()
+    fast = scan(x, FORMATS, quantiles=False, exponents=exponents, progress=False, **kw)
+    ref = general(monkeypatch, x, FORMATS, quantiles=False, exponents=exponents, progress=False, **kw)
+    assert fast.histogram.collected is exponents
+    assert_same(fast, ref, FORMATS)
+
+
+def test_counts_only_without_numba_and_on_threads(monkeypatch) -> None:
+    """Without numba the general path runs (and leaves the exponents out all the same); many
+    small blocks on worker threads give the same result as one pass."""
+    x = wide(200_000, 10)
+    ref = general(monkeypatch, x, FORMATS, quantiles=False, progress=False)
+    with monkeypatch.context() as m:
+        m.setattr(pc, "_kernels", lambda: None)
+        spec = scan_mod._Spec(scan_mod._resolve_entries(FORMATS, CastOptions()), CastOptions(),
+                              None, False, 10, False, True, None)
+        assert not counts_only.eligible(spec)
+        plain = scan(x, FORMATS, quantiles=False, progress=False)
+        assert_same(plain, ref, FORMATS)
+        assert not plain.histogram.collected
+    if pc.compiled_available():
+        assert counts_only.eligible(spec)
+        with monkeypatch.context() as m:
+            m.setattr(scan_mod, "COUNT_BLOCK", 1 << 14)
+            m.setattr(scan_mod, "MAX_THREADS", 3)
+            m.setattr(counts_only, "COMPILED_MIN", 1 << 10)
+            m.setattr(counts_only, "PIECE", 1 << 12)
+            assert scan_mod._threads() > 1 or pytest.skip("one core: no worker threads")
+            assert_same(scan(x, FORMATS, quantiles=False, progress=False), ref, FORMATS)
+            x16 = narrow(x, np.float16)  # converted in pieces inside each block
+            ref16 = general(monkeypatch, x16, FORMATS, quantiles=False, progress=False)
+            assert_same(scan(x16, FORMATS, quantiles=False, progress=False), ref16, FORMATS)
+
+
+def test_counts_only_against_reference_casts() -> None:
+    """Overflow and underflow counts of a 5M-element scan (threads, numba when installed)
+    against numpy (float16) and ml_dtypes (the others) casts of the same data."""
+    x = wide(5_000_000, 11)
+    res = scan(x, FORMATS[:4], quantiles=False, progress=False)
+    finite = np.isfinite(x)
+    for name in FORMATS[:4]:
+        dt = np.float16 if name == "float16" else getattr(ml_dtypes, name)
+        with np.errstate(all="ignore"):
+            y = x.astype(dt).astype(np.float32)
+        overflow = int(np.count_nonzero(finite & ~np.isfinite(y)))  # Inf, or NaN in e4m3fn
+        underflow = int(np.count_nonzero(finite & (x != 0) & (y == 0)))
+        f = res[name]
+        assert (f.overflow, f.underflow) == (overflow, underflow), name
+    assert res.histogram.nan == int(np.isnan(x).sum())
+    assert res.histogram.inf == int(np.isinf(x).sum())
+    assert res.histogram.zero == int((x == 0).sum())
+    assert res.min == -math.inf and res.max == math.inf
+
+
+def test_exponents_option(monkeypatch) -> None:
+    pytest.importorskip("matplotlib")
+    x = narrow(wide(20000, 12), np.float16)  # float16 subnormals must be told either way
+    off = scan(x, FORMATS, quantiles=False, progress=False)
+    on = scan(x, FORMATS, quantiles=False, exponents=True, progress=False)
+    hist = scan(x, FORMATS, quantiles="histogram", progress=False)
+    assert not off.histogram.collected and off.histogram.exponents == ()
+    assert on.histogram == hist.histogram and on.histogram.collected
+    assert off.histogram.subnormal == on.histogram.subnormal > 0
+    assert "binary exponents not collected" in off.to_text()
+    with pytest.raises(BitprismError, match="exponents=True"):
+        off.plot()
+    on.plot()
+    assert not scan(x, FORMATS, quantiles="histogram", exponents=False, progress=False).histogram.collected
+    with pytest.raises(BitprismError, match="exponents"):
+        scan(x, FORMATS, quantiles=False, exponents="yes", progress=False)  # type: ignore[arg-type]
+
+
+def test_dask_counts_only() -> None:
+    da = pytest.importorskip("dask.array")
+    import dask
+
+    x = wide(60000, 13).reshape(300, 200)
+    ref = scan(x, FORMATS, quantiles=False, progress=False)
+    with dask.config.set(scheduler="synchronous"):
+        got = scan(da.from_array(x, chunks=(70, 90)), FORMATS, quantiles=False)
+    assert_same(got, ref, FORMATS)

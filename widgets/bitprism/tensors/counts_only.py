@@ -1,0 +1,208 @@
+"""The counts-only scan of one block: every class count is a count of bit patterns in a range.
+
+Rounding is monotone, so for a format whose thresholds are the same for both signs each class
+of a cast is a range of ``|x|``: overflow is ``[overflow_from, Inf)``, underflow
+``(0, nonzero_from)``, subnormal ``[nonzero_from, normal_from)``. Non-negative IEEE values are
+ordered like their bit patterns, so with G(p) = #(magnitude pattern >= p) each count is a
+difference of two G values, and the input's own classes (zero, subnormal, Inf, NaN) are too.
+``pattern_counts.block_counts`` gets every G of a block in one pass; positions ("where") come
+from an early-exit search that usually stops after a few elements.
+
+Used by ``scan._scan_block`` when the scan is counts-only, every format is a plain,
+sign-symmetric one and numba is installed; anything else takes the general path. Tests hold
+the two paths equal.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+from typing import TYPE_CHECKING, Iterator
+
+import numpy as np
+
+from ..formats import get_format
+from .partials import EXP_OFFSET, EXP_SLOTS, BlockPartial, FormatPartial, InputPartial
+from .pattern_counts import BlockCounts, block_counts, compiled_available, first_positions
+
+if TYPE_CHECKING:
+    from .scan import _Locator, _Spec
+
+__all__ = ["count_block", "eligible"]
+
+COMPILED_MIN = 1 << 15  # smaller pieces stay on numpy (no compile for a handful of values)
+PIECE = 1 << 18  # elements converted to the carrier at a time (other input dtypes, scale)
+
+
+def eligible(spec: "_Spec") -> bool:
+    """True when ``count_block`` computes this spec's block partials: a counts-only scan of
+    plain, sign-symmetric formats, with the compiled kernel (numpy alone needs a pass per cut
+    here, slower than the general path's exponent-histogram shortcuts)."""
+    return (
+        compiled_available()
+        and spec.mode is False
+        and spec.targets is None
+        and not spec.hooks
+        and all(e.fmt is not None and e.symmetric for e in spec.entries)
+    )
+
+
+@dataclass(frozen=True)
+class _Plan:
+    """What a counts-only scan compares with, in the carrier's bit patterns."""
+
+    dtype: np.dtype  # uint32 (float32 carrier) or uint64 (float64)
+    t: int  # significand bits of the carrier
+    cuts: np.ndarray  # ascending magnitude patterns
+    index: dict[int, int]  # pattern -> position in cuts
+    inf: int
+    p_sub: int  # magnitudes in [1, p_sub) are the input's subnormals
+    entries: tuple[tuple[int, int | None, int | None, bool], ...]  # po, pz, pn, subnormals
+
+
+@lru_cache(maxsize=64)
+def _plan(spec: "_Spec", input_dtype: np.dtype) -> _Plan:
+    from .scan import _pattern
+
+    wide = not spec.carrier32
+    dt, t = (np.dtype(np.uint64), 52) if wide else (np.dtype(np.uint32), 23)
+    width = dt.itemsize * 8
+    inf = ((1 << (width - 1 - t)) - 1) << t
+    if spec.exponents or spec.scale is not None or input_dtype.kind in "iub":
+        p_sub = 1 << t  # the carrier's smallest normal; the histogram tells the rest
+    else:
+        p_sub = _pattern(float(get_format(input_dtype).smallest_normal), wide)
+    cuts = {1, inf, inf + 1, p_sub}
+    entries = []
+    for e in spec.entries:
+        assert e.pos is not None and e.fmt is not None  # eligible(): plain, symmetric
+        po = _pattern(e.pos.overflow_from, wide)
+        pz = _pattern(e.pos.nonzero_from, wide) if e.fmt.has_zero else None
+        pn = _pattern(e.pos.normal_from, wide) if e.fmt.has_zero else None
+        subs = e.fmt.has_subnormals and spec.options.subnormals != "flush"
+        entries.append((po, pz, pn, subs))
+        cuts.update(p for p in (po, pz, pn) if p is not None)
+    ordered = sorted(cuts)
+    arr = np.array(ordered, dt)
+    arr.setflags(write=False)
+    return _Plan(dt, t, arr, {p: k for k, p in enumerate(ordered)}, inf, p_sub, tuple(entries))
+
+
+def _pieces(flat: np.ndarray, spec: "_Spec") -> Iterator[tuple[int, np.ndarray]]:
+    """(offset, carrier bit patterns) of the block: the block itself when the data already is
+    the carrier, else converted ``PIECE`` elements at a time (memory stays small)."""
+    if spec.carrier32 and flat.dtype == np.float32:
+        yield 0, np.ascontiguousarray(flat).view(np.uint32)
+        return
+    if not spec.carrier32 and flat.dtype == np.float64 and spec.scale is None:
+        yield 0, np.ascontiguousarray(flat).view(np.uint64)
+        return
+    carrier = np.float32 if spec.carrier32 else np.float64
+    buf = np.empty(min(PIECE, flat.size), carrier)
+    for at in range(0, flat.size, PIECE):
+        x = buf[: min(PIECE, flat.size - at)]
+        np.copyto(x, flat[at : at + x.size], casting="unsafe")  # exact: the carrier holds it
+        if spec.scale is not None:
+            with np.errstate(over="ignore"):  # beyond float64: Inf, as the cast sees it
+                np.multiply(x, spec.scale, out=x)
+        yield at, x.view(np.uint32 if spec.carrier32 else np.uint64)
+
+
+def _value(pattern: int, dtype: np.dtype) -> float:
+    return float(np.array([pattern], dtype).view(np.float32 if dtype.itemsize == 4 else np.float64)[0])
+
+
+def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartial:
+    """Partial result of one block of a counts-only scan (``eligible(spec)`` must hold)."""
+    flat = flat.reshape(-1)
+    plan = _plan(spec, flat.dtype)
+    inf, dt = plan.inf, plan.dtype
+    sign = 1 << (dt.itemsize * 8 - 1)
+    limit = spec.limit
+    # per kind: (low pattern, high pattern) of its magnitude range
+    ranges = [(inf + 1, sign), (inf, inf + 1)]
+    for po, pz, pn, _ in plan.entries:
+        ranges += [(po, inf), (1, pz or 1), (pz or 1, pn or 1)]
+    totals = np.zeros(len(ranges), np.int64)
+    found: list[list[np.ndarray]] = [[] for _ in ranges]
+    need = [limit] * len(ranges)
+    n = pinf = zero = csub = 0
+    lo, hi = math.inf, -math.inf
+    exps: np.ndarray | None = None
+    for at, bits in _pieces(flat, spec):
+        compiled = bits.size >= COMPILED_MIN
+        bc = block_counts(bits, plan.t, plan.cuts, spec.exponents, compiled=compiled)
+        g = bc.at_least
+        ix = plan.index
+        k = int(bits.size)
+        nan = int(g[ix[inf + 1]])
+        counts = [nan, int(g[ix[inf]]) - nan]
+        for po, pz, pn, subs in plan.entries:
+            ov = int(g[ix[po]] - g[ix[inf]]) if po <= inf else 0
+            uf = int(g[ix[1]] - g[ix[pz]]) if pz is not None else 0
+            sb = int(g[ix[pz]] - g[ix[pn]]) if pz is not None and pn is not None and subs else 0
+            counts += [ov, uf, sb]
+        totals += counts
+        for r, c in enumerate(counts):
+            if c and need[r] > 0:
+                pos = first_positions(bits, *ranges[r], True, min(need[r], c), compiled=compiled)
+                found[r].append(loc.to_global(pos + at))
+                need[r] -= pos.size
+        piece_zero = k - int(g[ix[1]])
+        p_lo, p_hi = _extremes(bc, bc.pos_inf, counts[1] - bc.pos_inf, piece_zero, dt)
+        lo, hi = min(lo, p_lo), max(hi, p_hi)
+        n += k
+        pinf += bc.pos_inf
+        zero += piece_zero
+        csub += int(g[ix[1]] - g[ix[plan.p_sub]])
+        if bc.exponents is not None:
+            exps = bc.exponents if exps is None else exps + bc.exponents
+    exponents = np.zeros(EXP_SLOTS, np.int64)
+    if exps is not None:
+        width = dt.itemsize * 8
+        e_top = inf >> plan.t
+        bias = (1 << (width - 2 - plan.t)) - 1
+        exponents[np.arange(1, e_top) - bias + EXP_OFFSET] = exps[1:e_top]
+
+    def where(r: int) -> np.ndarray:
+        return np.concatenate(found[r]) if found[r] else np.zeros(0, np.int64)
+
+    t = [int(v) for v in totals]
+    inp = InputPartial(n, t[0], pinf, t[1] - pinf, zero, csub, lo, hi, exponents, where(0), where(1))
+    fps = tuple(
+        FormatPartial(
+            t[2 + 3 * j], t[3 + 3 * j], t[4 + 3 * j],
+            where_overflow=where(2 + 3 * j),
+            where_underflow=where(3 + 3 * j),
+            where_subnormal=where(4 + 3 * j),
+        )
+        for j in range(len(plan.entries))
+    )
+    return BlockPartial(limit, inp, fps)
+
+
+def _extremes(bc: BlockCounts, pinf: int, ninf: int, zero: int, dt: np.dtype) -> tuple[float, float]:
+    """(min, max) over the non-NaN values of the block (Inf included) from the extreme
+    patterns; (Inf, -Inf) when there is none, as ``InputPartial`` expects."""
+    if pinf:
+        hi = math.inf
+    elif bc.pos_max is not None:
+        hi = _value(bc.pos_max, dt)
+    elif zero:
+        hi = 0.0
+    elif bc.neg_min is not None:
+        hi = _value(bc.neg_min, dt)
+    else:
+        hi = -math.inf  # only -Inf (or nothing but NaN)
+    if ninf:
+        lo = -math.inf
+    elif bc.neg_max is not None:
+        lo = _value(bc.neg_max, dt)
+    elif zero:
+        lo = 0.0
+    elif bc.pos_min is not None:
+        lo = _value(bc.pos_min, dt)
+    else:
+        lo = math.inf  # only +Inf (or nothing but NaN)
+    return lo, hi
