@@ -177,6 +177,28 @@ def test_scan_json(capsys, tmp_path):
     assert tensors["ok"]["formats"]["float16"]["overflow"] == 0
 
 
+def test_scan_counts_only_gives_the_same_counts(capsys, tmp_path):
+    paths = checkpoint(tmp_path)
+    reports = []
+    for q in ("exact", "none"):
+        code, out, _ = run(
+            capsys, "scan", str(paths["npz"]), "--formats", "fp16,e4m3", "--fail-on", "overflow",
+            "--json", "--no-progress", "--quantiles", q,
+        )
+        assert code == 1
+        reports.append({t["name"]: t["formats"] for t in json.loads(out)["tensors"]})
+    exact, counts = reports
+    for name, fmts in exact.items():
+        for fmt, row in fmts.items():
+            got = counts[name][fmt]
+            for k in ("nan", "inf", "overflow", "underflow", "subnormal"):
+                assert got[k] == row[k], (name, fmt, k)
+            assert got["rel_error_p50"] is None and got["quantiles"] == "none"
+    code, _, err = run(capsys, "scan", str(paths["npz"]), "--quantiles", "none",
+                       "--rounding", "stochastic", "--no-progress")
+    assert code == 2 and "deterministic" in err
+
+
 def test_scan_unknown_tensor_exit_2(capsys, tmp_path):
     paths = checkpoint(tmp_path)
     code, _, err = run(capsys, "scan", str(paths["npz"]), "--tensor", "nope", "--no-progress")
