@@ -317,6 +317,31 @@ def test_multiblock_equals_single_block(monkeypatch: pytest.MonkeyPatch) -> None
         assert all(np.array_equal(u, v) for u, v in zip(w1, w2))
 
 
+@pytest.mark.parametrize("mode,rounding", [("histogram", "roundTiesToEven"), ("exact", "roundTiesToEven"),
+                                           ("exact", "stochastic"), (False, "roundTiesToEven")])
+def test_threads_equal_one_thread(monkeypatch: pytest.MonkeyPatch, mode, rounding) -> None:
+    """Blocks on worker threads (merged in order, floors from the blocks merged so far) give
+    the same result as one thread, the second pass of exact quantiles included."""
+    x = wide_data(30000, seed=5).reshape(150, 200)
+    monkeypatch.setattr(scan_mod, "BLOCK", 2500)
+    monkeypatch.setattr(scan_mod, "COUNT_BLOCK", 2500)  # counts only (with numba: threads)
+    monkeypatch.setattr(scan_mod.counts_only, "COMPILED_MIN", 256)
+    monkeypatch.setattr(scan_mod, "_SUB", 512)
+    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 1000)
+    monkeypatch.setattr(scan_mod, "_CAP", 64)
+    kw = dict(quantiles=mode, rounding=rounding, seed=7, progress=False)
+    monkeypatch.setattr(scan_mod, "MAX_THREADS", 1)
+    one = scan(x, ALL, **kw)
+    monkeypatch.setattr(scan_mod, "MAX_THREADS", 3)
+    monkeypatch.setattr(scan_mod, "_threads", lambda: 3)  # threads even on a one-core machine
+    many = scan(x, ALL, **kw)
+    assert one.formats == many.formats and one.histogram == many.histogram
+    for name in ALL:
+        for kind in ("overflow", "underflow", "subnormal", "largest_error"):
+            w1, w2 = one.where(kind, name), many.where(kind, name)
+            assert all(np.array_equal(u, v) for u, v in zip(w1, w2)), (name, kind)
+
+
 def test_non_contiguous_input() -> None:
     x = wide_data(6000, seed=8).reshape(60, 100)
     a = scan(x.T, ("float16",), progress=False)

@@ -45,12 +45,14 @@ Quantiles (``quantiles=``):
   thresholds (smallest magnitude that overflows, smallest that does not underflow, smallest
   whose result is normal) are found once per format by rounding a few scalars exactly, and the
   data is only compared with them. Needs a deterministic rounding direction. With plain,
-  sign-symmetric formats the comparisons are bit-pattern counts (``counts_only``), compiled
-  with numba when installed and spread over up to ``MAX_THREADS`` threads; the exponent
-  histogram is left out unless ``exponents=True``.
+  sign-symmetric formats and numba installed the comparisons are bit-pattern counts
+  (``counts_only``) in blocks of ``COUNT_BLOCK``; the exponent histogram is left out unless
+  ``exponents=True``.
 
 Memory and scale: the tensor is read in blocks of ``BLOCK`` elements (processed in cache-sized
-pieces), so a ``np.memmap`` is never loaded whole. Each block gives a ``BlockPartial`` whose
+pieces), so a ``np.memmap`` is never loaded whole. Blocks run on up to ``MAX_THREADS`` worker
+threads (numpy and the counting kernel release the GIL), one block ahead at most, merged in
+order; block formats stay on the calling thread. Each block gives a ``BlockPartial`` whose
 merge is associative and commutative (see ``partials``). A dask array (recognised by duck
 typing; dask is imported only then) is scanned as a dask reduction: one partial per chunk via
 ``to_delayed``, then a tree of merges, so it runs on whatever scheduler is active, a
@@ -125,7 +127,7 @@ COUNT_BLOCK = 1 << 22  # ... of a counts-only scan (tiny partials: fewer, larger
 _SUB = 1 << 16  # elements per cache-sized piece inside a block
 KEEP_VALUES = 1 << 16  # exact quantiles in one pass up to this many elements (kept values)
 PROGRESS_MIN = 1 << 22  # show a progress bar from this many elements (times passes)
-MAX_THREADS = 4  # worker threads of a counts-only scan (at most the cores available)
+MAX_THREADS = 4  # worker threads of a scan (at most the cores available)
 WHERE_KINDS = ("nan", "inf", "overflow", "underflow", "subnormal", "largest_error")
 _QUANTILES = ("exact", "histogram", False)
 _PERCENTILES = (0.5, 0.99)
@@ -1179,7 +1181,8 @@ def _progress_bar(total: int, enabled: bool, desc: str) -> Any:
 
 
 def _threads() -> int:
-    """Worker threads for a counts-only scan: the compiled kernel releases the GIL."""
+    """Worker threads of a scan: the counting kernel releases the GIL, and so does numpy
+    inside each operation of the general block scan."""
     try:
         cores = len(os.sched_getaffinity(0))
     except AttributeError:  # not on every platform
@@ -1187,10 +1190,29 @@ def _threads() -> int:
     return max(1, min(MAX_THREADS, cores))
 
 
-def _run_threads(arr: np.ndarray, spec: _Spec, bar: Any, workers: int) -> BlockPartial | None:
-    """Blocks scanned on ``workers`` threads, at most one more block in flight (so a memmap
-    or a strided input is never read far ahead), merged as they finish: the merge is
-    associative and commutative, so the result equals the sequential one."""
+def _floors(out: BlockPartial | None, spec: _Spec) -> tuple[float, ...] | None:
+    """Per entry, the error the blocks merged so far (all at lower positions) already beat
+    ``limit`` times: later blocks skip elements not above it (see ``_scan_block``)."""
+    if out is None or spec.targets is not None:
+        return None
+    return tuple(
+        float(f.top_err[-1]) if f.top_err.size >= spec.limit and spec.limit else 0.0
+        for f in out.formats
+    )
+
+
+def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
+    """Scan the blocks of a numpy array in order on up to ``_threads()`` threads, at most one
+    more block in flight than threads (so a memmap or a strided input is never read far
+    ahead), merged in order. The merge is associative and commutative and the floors only
+    skip work, so the result equals a one-thread scan. Block formats (user objects that may
+    not be thread-safe) run on the calling thread, and so does a counts-only scan without
+    the compiled kernel (measured slower on threads)."""
+    counting = counts_only.eligible(spec)
+    block = COUNT_BLOCK if counting else BLOCK
+    # numpy's counts-only block holds the GIL too often (bincount) to gain from threads
+    serial = spec.hooks or (spec.mode is False and not counting) or arr.size <= block
+    workers = 1 if serial else _threads()
     out: BlockPartial | None = None
     pending: deque[tuple[Future[BlockPartial], int]] = deque()
 
@@ -1202,10 +1224,18 @@ def _run_threads(arr: np.ndarray, spec: _Spec, bar: Any, workers: int) -> BlockP
         if bar is not None:
             bar.update(k)
 
+    if workers == 1:
+        for values, loc, seg in _numpy_blocks(arr, spec, block):
+            part = _scan_block(values, loc, spec, seg, _floors(out, spec))
+            out = part if out is None else out.merge(part)
+            if bar is not None:
+                bar.update(values.size)
+        return out
     with ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan") as pool:
         try:
-            for values, loc, seg in _numpy_blocks(arr, spec, COUNT_BLOCK):
-                pending.append((pool.submit(_scan_block, values, loc, spec, seg), values.size))
+            for values, loc, seg in _numpy_blocks(arr, spec, block):
+                fut = pool.submit(_scan_block, values, loc, spec, seg, _floors(out, spec))
+                pending.append((fut, values.size))
                 if len(pending) > workers:
                     take()
             while pending:
@@ -1213,27 +1243,6 @@ def _run_threads(arr: np.ndarray, spec: _Spec, bar: Any, workers: int) -> BlockP
         finally:
             for fut, _ in pending:
                 fut.cancel()
-    return out
-
-
-def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
-    counting = counts_only.eligible(spec)
-    if counting and arr.size > COUNT_BLOCK:
-        workers = _threads()
-        if workers > 1:
-            return _run_threads(arr, spec, bar, workers)
-    out: BlockPartial | None = None
-    for values, loc, seg in _numpy_blocks(arr, spec, COUNT_BLOCK if counting else BLOCK):
-        floors = None
-        if out is not None and spec.targets is None:
-            floors = tuple(
-                float(f.top_err[-1]) if f.top_err.size >= spec.limit and spec.limit else 0.0
-                for f in out.formats
-            )
-        part = _scan_block(values, loc, spec, seg, floors)
-        out = part if out is None else out.merge(part)
-        if bar is not None:
-            bar.update(values.size)
     return out
 
 
