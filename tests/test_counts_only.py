@@ -88,8 +88,9 @@ def test_block_counts_on_every_kind_of_pattern(f: dict, n: int, compiled: bool) 
 @needs_numba
 @pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
 def test_block_counts_chunks_without_specials(f: dict) -> None:
-    """Chunks of only zeros, only NaN, only one sign, or one binade: the kernel settles cuts
-    from the chunk's range there, so each case is held to the Python counts."""
+    """Chunks of only zeros, only NaN, only -Inf, Inf and NaN without finite values, one sign,
+    or one binade: the kernel settles cuts from the chunk's range there, so each case is held
+    to the Python counts."""
     inf, sign, t = f["inf"], f["sign"], f["t"]
     one = (inf >> 1) & ~((1 << t) - 1)
     cuts = sorted({1, 2, 1 << t, one, one + 5, inf - 1, inf, inf + 1, sign - 1})
@@ -97,6 +98,7 @@ def test_block_counts_chunks_without_specials(f: dict) -> None:
         np.zeros(3000, f["dtype"]),
         np.full(3000, inf + 3, f["dtype"]),
         np.full(3000, sign | inf, f["dtype"]),
+        np.tile(np.array([inf, inf + 5, 0, sign | inf, sign | (inf + 9)], f["dtype"]), 700),
         np.arange(one, one + 3000, dtype=f["dtype"]),
         np.arange(one, one + 3000, dtype=f["dtype"]) | f["dtype"](sign),
         np.concatenate([np.zeros(2048, f["dtype"]), np.arange(one, one + 2048, dtype=f["dtype"])]),
