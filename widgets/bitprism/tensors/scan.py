@@ -46,8 +46,8 @@ Quantiles (``quantiles=``):
   whose result is normal) are found once per format by rounding a few scalars exactly, and the
   data is only compared with them. Needs a deterministic rounding direction. With plain,
   sign-symmetric formats and numba installed the comparisons are bit-pattern counts
-  (``counts_only``) in blocks of ``COUNT_BLOCK``; the exponent histogram is left out unless
-  ``exponents=True``.
+  (``counts_only``) in one block per thread (up to ``COUNT_BLOCK``); the exponent histogram
+  is left out unless ``exponents=True``.
 
 Memory and scale: the tensor is read in blocks of ``BLOCK`` elements (processed in cache-sized
 pieces), so a ``np.memmap`` is never loaded whole. Blocks run on up to ``MAX_THREADS`` worker
@@ -80,8 +80,9 @@ from __future__ import annotations
 
 import math
 import os
+import threading
 from collections import deque
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor, wait
 from dataclasses import dataclass, field
 from functools import lru_cache
 from types import MappingProxyType
@@ -123,7 +124,9 @@ __all__ = [
 ]
 
 BLOCK = 1 << 20  # elements per partial result
-COUNT_BLOCK = 1 << 22  # ... of a counts-only scan (tiny partials: fewer, larger blocks)
+COUNT_BLOCK = 1 << 24  # ... of a counts-only scan at most (tiny partials: few, large blocks;
+COUNT_BLOCK_MIN = 1 << 20  # each costs ~0.3 ms of Python), else one block per thread
+_COPY_MAX = 1 << 22  # elements copied at a time from a strided input
 _SUB = 1 << 16  # elements per cache-sized piece inside a block
 KEEP_VALUES = 1 << 16  # exact quantiles in one pass up to this many elements (kept values)
 PROGRESS_MIN = 1 << 22  # show a progress bar from this many elements (times passes)
@@ -1166,7 +1169,7 @@ def _numpy_blocks(
             yield np.ascontiguousarray(a[s:e]), _Locator(s), seg
         return
     # not C-contiguous: read whole rows of axis 0 (copies bounded by the block, or one row)
-    rows_per = max(1, block // row)
+    rows_per = max(1, min(block, _COPY_MAX) // row)
     for r in range(0, a.shape[0], rows_per):
         rows = np.ascontiguousarray(a[r : r + rows_per]).reshape(-1)
         yield rows, _Locator(r * row), last if spec.hooks else _SUB
@@ -1209,10 +1212,14 @@ def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
     not be thread-safe) run on the calling thread, and so does a counts-only scan without
     the compiled kernel (measured slower on threads)."""
     counting = counts_only.eligible(spec)
-    block = COUNT_BLOCK if counting else BLOCK
+    workers = 1 if spec.hooks else _threads()
+    if counting:
+        block = min(COUNT_BLOCK, max(COUNT_BLOCK_MIN, -(-arr.size // workers)))
+    else:
+        block = BLOCK
     # numpy's counts-only block holds the GIL too often (bincount) to gain from threads
-    serial = spec.hooks or (spec.mode is False and not counting) or arr.size <= block
-    workers = 1 if serial else _threads()
+    if (spec.mode is False and not counting) or arr.size <= block:
+        workers = 1
     out: BlockPartial | None = None
     pending: deque[tuple[Future[BlockPartial], int]] = deque()
 
@@ -1231,19 +1238,36 @@ def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
             if bar is not None:
                 bar.update(values.size)
         return out
-    with ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan") as pool:
-        try:
-            for values, loc, seg in _numpy_blocks(arr, spec, block):
-                fut = pool.submit(_scan_block, values, loc, spec, seg, _floors(out, spec))
-                pending.append((fut, values.size))
-                if len(pending) > workers:
-                    take()
-            while pending:
+    pool = _pool(workers)
+    try:
+        for values, loc, seg in _numpy_blocks(arr, spec, block):
+            fut = pool.submit(_scan_block, values, loc, spec, seg, _floors(out, spec))
+            pending.append((fut, values.size))
+            if len(pending) > workers:
                 take()
-        finally:
-            for fut, _ in pending:
-                fut.cancel()
+        while pending:
+            take()
+    finally:
+        for fut, _ in pending:  # an error or an interrupt: drop what has not started
+            fut.cancel()
+        for fut, _ in pending:
+            if not fut.cancelled():
+                wait([fut])
     return out
+
+
+_pools: dict[int, ThreadPoolExecutor] = {}
+_pools_lock = threading.Lock()
+
+
+def _pool(workers: int) -> ThreadPoolExecutor:
+    """A thread pool kept for the process (starting threads for every scan costs about as
+    much as counting a million elements)."""
+    with _pools_lock:
+        pool = _pools.get(workers)
+        if pool is None:
+            pool = _pools[workers] = ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan")
+        return pool
 
 
 def _merge_all(*parts: BlockPartial) -> BlockPartial:
