@@ -10,6 +10,7 @@ both finite.
 from __future__ import annotations
 
 import math
+import os
 import subprocess
 import sys
 from fractions import Fraction
@@ -340,6 +341,29 @@ def test_threads_equal_one_thread(monkeypatch: pytest.MonkeyPatch, mode, roundin
         for kind in ("overflow", "underflow", "subnormal", "largest_error"):
             w1, w2 = one.where(kind, name), many.where(kind, name)
             assert all(np.array_equal(u, v) for u, v in zip(w1, w2)), (name, kind)
+
+
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork")
+def test_scan_in_a_forked_child(tmp_path) -> None:
+    """A child forked after a threaded scan inherits the thread pool object but not its
+    threads: its own scan must still finish (run in a subprocess, so a hang is a timeout)."""
+    script = tmp_path / "fork_scan.py"
+    script.write_text(
+        "import os\n"
+        "import numpy as np\n"
+        "from bitprism.tensors import scan as sm\n"
+        "sm._threads = lambda: 2  # threads even on a one-core machine\n"
+        "x = np.random.default_rng(0).standard_normal(1 << 21).astype(np.float32)\n"
+        "for q in (False, 'histogram'):\n"
+        "    r = sm.scan(x, quantiles=q, progress=False)\n"
+        "    pid = os.fork()\n"
+        "    if pid == 0:\n"
+        "        os._exit(0 if sm.scan(x, quantiles=q, progress=False).formats == r.formats else 3)\n"
+        "    assert os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1]) == 0\n"
+        "print('ok')\n"
+    )
+    out = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0 and out.stdout.strip() == "ok", out.stderr
 
 
 def test_non_contiguous_input() -> None:

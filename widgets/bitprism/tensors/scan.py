@@ -1256,17 +1256,19 @@ def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
     return out
 
 
-_pools: dict[int, ThreadPoolExecutor] = {}
+_pools: dict[tuple[int, int], ThreadPoolExecutor] = {}
 _pools_lock = threading.Lock()
 
 
 def _pool(workers: int) -> ThreadPoolExecutor:
     """A thread pool kept for the process (starting threads for every scan costs about as
-    much as counting a million elements)."""
+    much as counting a million elements). Keyed by process id too: a forked child inherits
+    the pool object but not its threads, so it gets a pool of its own."""
+    key = (os.getpid(), workers)
     with _pools_lock:
-        pool = _pools.get(workers)
+        pool = _pools.get(key)
         if pool is None:
-            pool = _pools[workers] = ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan")
+            pool = _pools[key] = ThreadPoolExecutor(workers, thread_name_prefix="bitprism-scan")
         return pool
 
 
