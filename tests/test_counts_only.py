@@ -117,6 +117,13 @@ def test_block_counts_property(values: list[int], cuts: list[int]) -> None:
     check_counts(np.array(values, np.uint32), F32, sorted(cuts), True)
 
 
+def test_block_counts_refuses_bad_cuts() -> None:
+    bits = np.arange(10, dtype=np.uint32)
+    for cuts in ([0, 5], [5, 3]):
+        with pytest.raises(ValueError, match="ascending"):
+            pc.block_counts(bits, 23, np.array(cuts, np.uint32), False)
+
+
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 def test_first_positions(compiled: bool) -> None:
     if compiled and not pc.compiled_available():

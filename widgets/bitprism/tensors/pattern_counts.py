@@ -87,6 +87,8 @@ def block_counts(
     ``compiled=False`` uses numpy even when the kernel is available."""
     dtype = bits.dtype
     cuts = np.ascontiguousarray(cuts, dtype)
+    if cuts.size and (cuts[0] < 1 or np.any(cuts[1:] < cuts[:-1])):
+        raise ValueError("cuts must be ascending magnitude patterns, each at least 1")
     k = _kernels() if compiled else None
     if k is not None and bits.size:
         const = _constants(dtype, t)
