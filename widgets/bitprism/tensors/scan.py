@@ -124,8 +124,10 @@ __all__ = [
 ]
 
 BLOCK = 1 << 20  # elements per partial result
-COUNT_BLOCK = 1 << 24  # ... of a counts-only scan at most (tiny partials: few, large blocks;
-COUNT_BLOCK_MIN = 1 << 20  # each costs ~0.3 ms of Python), else one block per thread
+# A counts-only block's partial is tiny but costs ~0.3 ms of Python: one block per thread,
+# within these bounds.
+COUNT_BLOCK = 1 << 24
+COUNT_BLOCK_MIN = 1 << 20
 _COPY_MAX = 1 << 22  # elements copied at a time from a strided input
 _SUB = 1 << 16  # elements per cache-sized piece inside a block
 KEEP_VALUES = 1 << 16  # exact quantiles in one pass up to this many elements (kept values)
@@ -1221,6 +1223,13 @@ def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
     if (spec.mode is False and not counting) or arr.size <= block:
         workers = 1
     out: BlockPartial | None = None
+    if workers == 1:
+        for values, loc, seg in _numpy_blocks(arr, spec, block):
+            part = _scan_block(values, loc, spec, seg, _floors(out, spec))
+            out = part if out is None else out.merge(part)
+            if bar is not None:
+                bar.update(values.size)
+        return out
     pending: deque[tuple[Future[BlockPartial], int]] = deque()
 
     def take() -> None:
@@ -1231,13 +1240,6 @@ def _run_numpy(arr: np.ndarray, spec: _Spec, bar: Any) -> BlockPartial | None:
         if bar is not None:
             bar.update(k)
 
-    if workers == 1:
-        for values, loc, seg in _numpy_blocks(arr, spec, block):
-            part = _scan_block(values, loc, spec, seg, _floors(out, spec))
-            out = part if out is None else out.merge(part)
-            if bar is not None:
-                bar.update(values.size)
-        return out
     pool = _pool(workers)
     try:
         for values, loc, seg in _numpy_blocks(arr, spec, block):
