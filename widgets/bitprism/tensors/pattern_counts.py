@@ -162,16 +162,23 @@ def _probe(x: int) -> int:
     return x
 
 
-def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any]]]:
-    """Build the numba kernels, one pair per pattern dtype (cached on disk by numba where it
-    can write)."""
+def make_jit() -> Any:
+    """numba's ``njit`` as every bitprism kernel uses it: without the GIL and bounds checks,
+    cached on disk where numba can write (beside the module, or in a per-user folder), else
+    compiled in every process. Only call it when ``compiled_available()``."""
     from numba import njit
 
-    try:  # numba caches compiled code beside the module, or in a per-user folder
+    try:
         jit = njit(nogil=True, cache=True, boundscheck=False)
         jit(_probe)
-    except RuntimeError:  # nowhere writable: compile in every process instead
+    except RuntimeError:  # nowhere writable
         jit = njit(nogil=True, cache=False, boundscheck=False)
+    return jit
+
+
+def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any]]]:
+    """Build the numba kernels, one pair per pattern dtype."""
+    jit = make_jit()
     return {np.dtype(t): _kernels_for(t, jit) for t in (np.uint32, np.uint64)}
 
 

@@ -96,7 +96,7 @@ from ..numerics.codes import decode, encode, value_table
 from ..numerics.inspect import ulp
 from ..numerics.kernel import table_codes, table_eligible, table_index
 from ..numerics.options import CastOptions
-from . import counts_only
+from . import counts_only, error_kernels
 from .partials import (
     EXP_OFFSET,
     REL_BASE,
@@ -487,6 +487,9 @@ def _scan_block(
     width_sub = min(sub, max(flat.size, 1))
     buf: dict[str, np.ndarray] = {name: np.empty(width_sub) for name in ("x64", "xe", "x0", "ax", "den", "err", "rel", "q", "sq")}
     buf["keys"] = np.empty(width_sub, np.int64)
+    compiled = error_kernels.available()  # code lookups and error buckets in compiled loops
+    if compiled:
+        buf["u"] = np.empty(width_sub)  # 1/ulp of each code
     buf["ci"] = np.empty(width_sub, np.intp)  # codes as gather indices
     buf["ti"] = np.empty(width_sub, np.intp)  # float32 table index, shared by table formats
     buf["t32"] = np.empty(width_sub, np.uint32)
@@ -684,6 +687,7 @@ def _scan_block(
             nan_table = False  # q is NaN (never Inf) wherever the error is left out
             how = fast[j]
             codes: np.ndarray | None
+            code_counts: tuple[int, int, int] | None = None  # from lookup_codes
             if entry.hook is not None:
                 q = _hook_values(entry, x64, seg)
                 codes = None
@@ -702,7 +706,14 @@ def _scan_block(
                             spec.options.subnormals,
                             _sub_seed(spec.seed, int(loc.to_global(np.array([at]))[0])),
                         )
-                if fmt.bits <= 16:
+                if fmt.bits <= 16 and compiled:
+                    code_counts = error_kernels.lookup_codes(
+                        codes, _nan_value_table(fmt), _inv_ulp_table(fmt), fmt.magnitude_mask,
+                        (1 << fmt.t) - 1 if fmt.has_subnormals else 0, qbuf, buf["u"][:k],
+                    )
+                    q = qbuf
+                    nan_table = True
+                elif fmt.bits <= 16:
                     np.copyto(ci, codes, casting="unsafe")  # one conversion for every lookup
                     q = np.take(_nan_value_table(fmt), ci, out=qbuf, mode="wrap")
                     nan_table = True
@@ -769,26 +780,33 @@ def _scan_block(
                 # underflow and subnormal from the codes (the cast's actual outcome)
                 assert fmt is not None and codes is not None  # set by the plain-format cast
                 if fmt.has_zero:
-                    cm = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))
-                    zc = cm == 0 if fmt.has_negative_zero else codes == 0
-                    nz = int(np.count_nonzero(zc))
+                    mags = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))
+
+                    def zero_codes(cm: np.ndarray = mags, codes: np.ndarray = codes) -> np.ndarray:
+                        return cm == 0 if fmt.has_negative_zero else codes == 0
+
+                    def sub_codes(cm: np.ndarray = mags) -> np.ndarray:
+                        return np.subtract(cm, cm.dtype.type(1)) < cm.dtype.type((1 << fmt.t) - 1)
+
+                    if code_counts is not None:
+                        nz = code_counts[0] if fmt.has_negative_zero else code_counts[1]
+                    else:
+                        nz = int(np.count_nonzero(zero_codes()))
                     uf = nz - z - (0 if fmt.has_nan else sub_nan)
                     acc.underflow += uf
                     if uf:
-                        def uf_mask(zc: np.ndarray = zc) -> np.ndarray:
-                            return zc & (a != 0) & (a <= inf_bits)
+                        def uf_mask() -> np.ndarray:
+                            return zero_codes() & (a != 0) & (a <= inf_bits)
 
                         acc.note("underflow", limit, uf_mask, loc, at)
                     if fmt.has_subnormals:
-                        one = cm.dtype.type(1)
-                        sm = np.subtract(cm, one) < cm.dtype.type((1 << fmt.t) - 1)
-                        sb = int(np.count_nonzero(sm))
+                        if code_counts is not None:
+                            sb = code_counts[2]
+                        else:
+                            sb = int(np.count_nonzero(sub_codes()))
                         acc.subnormal += sb
                         if sb:
-                            def sb_mask(sm: np.ndarray = sm) -> np.ndarray:
-                                return sm
-
-                            acc.note("subnormal", limit, sb_mask, loc, at)
+                            acc.note("subnormal", limit, sub_codes, loc, at)
             # ----- errors of the compared elements
             compared = k - nbad
             acc.compared += compared
@@ -814,7 +832,9 @@ def _scan_block(
                     acc.sum_x2 += float(np.einsum("i,i->", sq, sq))
                 if codes is not None:
                     assert fmt is not None  # codes come from a plain format
-                    if fmt.bits <= 16:
+                    if code_counts is not None:
+                        ue = np.multiply(buf["u"][:k], err, out=sq)
+                    elif fmt.bits <= 16:
                         ue = np.take(_inv_ulp_table(fmt), ci, out=sq, mode="wrap")
                         np.multiply(ue, err, out=ue)
                     else:
@@ -824,10 +844,13 @@ def _scan_block(
                     acc.max_ulp = max(acc.max_ulp, float(ue.max()))
                     acc.sum_ulp += float(ue.sum())
                 if acc.hist is not None:
-                    acc.ones += int(np.count_nonzero(rel == 1.0))
-                    rel_keys(rel, keys, rmax)
-                    acc.hist += np.bincount(keys, minlength=REL_BINS)
-                    acc.hist[0] -= nbad
+                    if compiled:
+                        acc.ones += error_kernels.bucket_rel(rel, acc.hist)
+                    else:
+                        acc.ones += int(np.count_nonzero(rel == 1.0))
+                        rel_keys(rel, keys, rmax)
+                        acc.hist += np.bincount(keys, minlength=REL_BINS)
+                    acc.hist[0] -= nbad  # left out: relative error 0 in rel, not compared
                 if acc.values is not None:
                     if nbad:
                         kept = rel[~nanbool[:k]] if bad is None else np.delete(rel, bad)

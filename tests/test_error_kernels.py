@@ -1,0 +1,116 @@
+"""Tests of the compiled lookups and error buckets of the general scan path
+(``tensors.error_kernels``): every code of every format up to 16 bits against numpy's ``take``,
+the buckets against ``partials.rel_keys`` + ``bincount``, and whole scans with and without the
+kernels field by field (they must be equal, not close)."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+import bitprism.tensors.error_kernels as ek
+import bitprism.tensors.scan as scan_mod
+from bitprism.formats import get_format
+from bitprism.tensors.partials import REL_BINS, rel_keys
+from bitprism.tensors.scan import scan
+from test_scan import wide_data
+
+needs_numba = pytest.mark.skipif(not ek.available(), reason="numba not installed")
+
+SMALL = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float8_e4m3fnuz", "float6_e3m2fn",
+         "float6_e2m3fn", "float4_e2m1fn", "float8_e8m0fnu")
+
+
+@needs_numba
+@pytest.mark.parametrize("name", SMALL)
+def test_lookup_codes_every_code(name: str) -> None:
+    fmt = get_format(name)
+    codes = np.arange(1 << fmt.bits, dtype=fmt.code_dtype)
+    codes = np.concatenate([codes, codes[::-1]])
+    values = scan_mod._nan_value_table(fmt)
+    inv = scan_mod._inv_ulp_table(fmt)
+    q, u = np.empty(codes.size), np.empty(codes.size)
+    top = (1 << fmt.t) - 1 if fmt.has_subnormals else 0
+    mag0, code0, sub = ek.lookup_codes(codes, values, inv, fmt.magnitude_mask, top, q, u)
+    idx = codes.astype(np.intp)
+    assert np.array_equal(q, np.take(values, idx), equal_nan=True)
+    assert np.array_equal(u, np.take(inv, idx))
+    mags = codes & fmt.magnitude_mask
+    assert mag0 == int(np.count_nonzero(mags == 0))
+    assert code0 == int(np.count_nonzero(codes == 0))
+    assert sub == int(np.count_nonzero((mags >= 1) & (mags <= top)))
+
+
+@needs_numba
+def test_bucket_rel_matches_rel_keys() -> None:
+    # IEEE 754 binary64 (common practice): the smallest subnormal, the smallest normal, the
+    # largest finite value, Inf; the bucket edges themselves and their neighbours.
+    specials = [0.0, 5e-324, 2.2250738585072014e-308, 1.7976931348623157e308, np.inf, 1.0,
+                np.nextafter(1.0, 2.0), np.nextafter(1.0, 0.0), 0.5, 2.0**-60, 2.0**64, 2.0**70]
+    rng = np.random.default_rng(1)
+    rel = np.concatenate([np.array(specials), np.exp2(rng.uniform(-80, 80, 50_000)),
+                          rng.random(10_000), np.ones(17)])
+    hist = np.zeros(REL_BINS, np.int64)
+    hist[3] = 5  # added to, not overwritten
+    ones = ek.bucket_rel(rel, hist)
+    keys = rel_keys(rel, np.empty(rel.size, np.int64))
+    want = np.bincount(keys, minlength=REL_BINS)
+    want[3] += 5
+    assert np.array_equal(hist, want)
+    assert ones == int(np.count_nonzero(rel == 1.0)) == 18  # 1.0 in specials and 17 ones
+
+
+# ----- whole scans with and without the kernels -------------------------------------------------
+
+
+def same_scan(a, b) -> None:
+    assert a.to_text() == b.to_text()
+    for name in a.format_names:
+        fa, fb = a[name], b[name]
+        for f in dataclasses.fields(fa):
+            va, vb = getattr(fa, f.name), getattr(fb, f.name)
+            assert va == vb or (va != va and vb != vb), (name, f.name, va, vb)
+        for kind in ("overflow", "underflow", "subnormal", "largest_error"):
+            pa, pb = a.where(kind, name), b.where(kind, name)
+            assert all(np.array_equal(p, q) for p, q in zip(pa, pb)), (name, kind)
+
+
+FORMATS = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float6_e3m2fn", "float4_e2m1fn",
+           "float8_e4m3fnuz")
+
+CASES = [
+    ("float32", lambda: wide_data(70_000, 1, low=-140, high=40), {}),
+    ("float64", lambda: wide_data(70_000, 2, np.float64), {}),
+    ("scaled", lambda: wide_data(70_000, 3), {"scale": 2.0**-10}),
+    ("ties away, saturate", lambda: wide_data(70_000, 4), {"rounding": "roundTiesToAway", "overflow": "saturate"}),
+    ("toward zero, flush", lambda: wide_data(70_000, 5), {"rounding": "roundTowardZero", "subnormals": "flush"}),
+    ("only NaN", lambda: np.full(3000, np.nan, np.float32), {}),
+    ("empty", lambda: np.zeros((0, 3), np.float32), {}),
+]
+
+
+@needs_numba
+@pytest.mark.parametrize("quantiles", ["exact", "histogram"])
+@pytest.mark.parametrize("name,make,kw", CASES, ids=[c[0] for c in CASES])
+def test_scan_same_with_and_without_kernels(monkeypatch, name, make, kw, quantiles) -> None:
+    x = make()
+    fast = scan(x, FORMATS, quantiles=quantiles, progress=False, **kw)
+    with monkeypatch.context() as m:
+        m.setattr(ek, "available", lambda: False)
+        ref = scan(x, FORMATS, quantiles=quantiles, progress=False, **kw)
+    same_scan(fast, ref)
+
+
+@needs_numba
+def test_scan_same_with_block_formats(monkeypatch) -> None:
+    """Block-scaled formats (cast by a hook, buckets by the kernel) and a wide format."""
+    mx = pytest.importorskip("bitprism.tensors.mx")
+    formats = [mx.get_mx_format("mxfp8_e4m3"), mx.get_mx_format("mxfp4"), "float32", "float16"]
+    x = wide_data(40_000, 6, low=-20, high=20)
+    fast = scan(x, formats, progress=False)
+    with monkeypatch.context() as m:
+        m.setattr(ek, "available", lambda: False)
+        ref = scan(x, formats, progress=False)
+    same_scan(fast, ref)
