@@ -25,22 +25,40 @@ SMALL = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float8_e4m3fnuz
 
 @needs_numba
 @pytest.mark.parametrize("name", SMALL)
-def test_lookup_codes_every_code(name: str) -> None:
+def test_measure_codes_every_code(name: str) -> None:
+    """Every code of the format, against inputs near its value and non-finite ones, held to
+    the numpy operations the general path does (take, subtract, abs, fmax, divide)."""
     fmt = get_format(name)
     codes = np.arange(1 << fmt.bits, dtype=fmt.code_dtype)
-    codes = np.concatenate([codes, codes[::-1]])
+    codes = np.concatenate([codes, codes[::-1], codes])
     values = scan_mod._nan_value_table(fmt)
     inv = scan_mod._inv_ulp_table(fmt)
-    q, u = np.empty(codes.size), np.empty(codes.size)
-    top = (1 << fmt.t) - 1 if fmt.has_subnormals else 0
-    mag0, code0, sub = ek.lookup_codes(codes, values, inv, fmt.magnitude_mask, top, q, u)
+    rng = np.random.default_rng(fmt.bits)
     idx = codes.astype(np.intp)
-    assert np.array_equal(q, np.take(values, idx), equal_nan=True)
-    assert np.array_equal(u, np.take(inv, idx))
+    with np.errstate(invalid="ignore", over="ignore"):
+        x = np.nan_to_num(values[idx], nan=1.0) * (1 + rng.uniform(-0.3, 0.3, codes.size))
+    x[::7] = np.nan  # left out: non-finite input (the scan's xe)
+    x[1::11] = 0.0
+    den = np.abs(x)
+    den[~((den > 0) & (den < np.inf))] = 1.0
+    err, rel, ue = np.empty(codes.size), np.empty(codes.size), np.empty(codes.size)
+    bad = np.empty(codes.size, bool)
+    top = (1 << fmt.t) - 1 if fmt.has_subnormals else 0
+    got = ek.measure_codes(codes, x, den, values, inv, fmt.magnitude_mask, top, err, rel, ue, bad)
+    with np.errstate(invalid="ignore"):
+        e = np.abs(np.take(values, idx) - x)
+    want_bad = np.isnan(e)
+    e = np.fmax(e, 0.0)
+    r = e / den
+    u = np.take(inv, idx) * e
+    assert np.array_equal(bad, want_bad) and got.bad == int(want_bad.sum())
+    assert np.array_equal(err, e) and np.array_equal(rel, r) and np.array_equal(ue, u)
+    assert got.exact == int(np.count_nonzero(e == 0)) - got.bad
+    assert (got.max_err, got.max_rel, got.max_ulp) == (e.max(), r.max(), u.max())
     mags = codes & fmt.magnitude_mask
-    assert mag0 == int(np.count_nonzero(mags == 0))
-    assert code0 == int(np.count_nonzero(codes == 0))
-    assert sub == int(np.count_nonzero((mags >= 1) & (mags <= top)))
+    assert got.zero_magnitudes == int(np.count_nonzero(mags == 0))
+    assert got.zero_codes == int(np.count_nonzero(codes == 0))
+    assert got.subnormal == int(np.count_nonzero((mags >= 1) & (mags <= top)))
 
 
 @needs_numba

@@ -162,17 +162,18 @@ def _probe(x: int) -> int:
     return x
 
 
-def make_jit() -> Any:
+def make_jit(**options: Any) -> Any:
     """numba's ``njit`` as every bitprism kernel uses it: without the GIL and bounds checks,
     cached on disk where numba can write (beside the module, or in a per-user folder), else
-    compiled in every process. Only call it when ``compiled_available()``."""
+    compiled in every process; ``options`` go to ``njit`` too. Only call it when
+    ``compiled_available()``."""
     from numba import njit
 
     try:
-        jit = njit(nogil=True, cache=True, boundscheck=False)
+        jit = njit(nogil=True, cache=True, boundscheck=False, **options)
         jit(_probe)
     except RuntimeError:  # nowhere writable
-        jit = njit(nogil=True, cache=False, boundscheck=False)
+        jit = njit(nogil=True, cache=False, boundscheck=False, **options)
     return jit
 
 

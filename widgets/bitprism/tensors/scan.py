@@ -487,9 +487,9 @@ def _scan_block(
     width_sub = min(sub, max(flat.size, 1))
     buf: dict[str, np.ndarray] = {name: np.empty(width_sub) for name in ("x64", "xe", "x0", "ax", "den", "err", "rel", "q", "sq")}
     buf["keys"] = np.empty(width_sub, np.int64)
-    compiled = error_kernels.available()  # code lookups and error buckets in compiled loops
+    compiled = error_kernels.available()  # errors of <= 16-bit formats in compiled loops
     if compiled:
-        buf["u"] = np.empty(width_sub)  # 1/ulp of each code
+        buf["u"] = np.empty(width_sub)  # errors in ULPs
     buf["ci"] = np.empty(width_sub, np.intp)  # codes as gather indices
     buf["ti"] = np.empty(width_sub, np.intp)  # float32 table index, shared by table formats
     buf["t32"] = np.empty(width_sub, np.uint32)
@@ -687,7 +687,7 @@ def _scan_block(
             nan_table = False  # q is NaN (never Inf) wherever the error is left out
             how = fast[j]
             codes: np.ndarray | None
-            code_counts: tuple[int, int, int] | None = None  # from lookup_codes
+            measured: error_kernels.CodeErrors | None = None  # err, rel, ue, nanbool filled
             if entry.hook is not None:
                 q = _hook_values(entry, x64, seg)
                 codes = None
@@ -707,11 +707,11 @@ def _scan_block(
                             _sub_seed(spec.seed, int(loc.to_global(np.array([at]))[0])),
                         )
                 if fmt.bits <= 16 and compiled:
-                    code_counts = error_kernels.lookup_codes(
-                        codes, _nan_value_table(fmt), _inv_ulp_table(fmt), fmt.magnitude_mask,
-                        (1 << fmt.t) - 1 if fmt.has_subnormals else 0, qbuf, buf["u"][:k],
+                    measured = error_kernels.measure_codes(
+                        codes, xe, den, _nan_value_table(fmt), _inv_ulp_table(fmt),
+                        fmt.magnitude_mask, (1 << fmt.t) - 1 if fmt.has_subnormals else 0,
+                        err, rel, buf["u"][:k], nanbool[:k],
                     )
-                    q = qbuf
                     nan_table = True
                 elif fmt.bits <= 16:
                     np.copyto(ci, codes, casting="unsafe")  # one conversion for every lookup
@@ -719,11 +719,14 @@ def _scan_block(
                     nan_table = True
                 else:
                     q = decode(codes, fmt)
-            with np.errstate(invalid="ignore"):  # NaN - NaN where the input is not finite
-                np.subtract(q, xe, out=err)
-            np.abs(err, out=err)
+            if measured is None:
+                with np.errstate(invalid="ignore"):  # NaN - NaN where the input is not finite
+                    np.subtract(q, xe, out=err)
+                np.abs(err, out=err)
             bad = None
-            if k == 0:
+            if measured is not None:
+                nbad = measured.bad  # left out: 0 in err and rel, flagged in nanbool
+            elif k == 0:
                 nbad = 0
             elif nan_table and not collect:
                 np.not_equal(err, err, out=nanbool[:k])
@@ -738,7 +741,8 @@ def _scan_block(
                     bad = np.flatnonzero(~np.isfinite(err))
                     err[bad] = 0.0
                     nbad = bad.size
-            np.divide(err, den, out=rel)
+            if measured is None:
+                np.divide(err, den, out=rel)
             if collect:  # refinement pass: values or finer counts inside target ranges
                 u = rel.view(np.uint64)  # left-out elements have rel 0, below every range
                 for t_i, (lo_p, hi_p, shift, nbins) in enumerate(spec.targets[j]):  # type: ignore[index]
@@ -788,8 +792,8 @@ def _scan_block(
                     def sub_codes(cm: np.ndarray = mags) -> np.ndarray:
                         return np.subtract(cm, cm.dtype.type(1)) < cm.dtype.type((1 << fmt.t) - 1)
 
-                    if code_counts is not None:
-                        nz = code_counts[0] if fmt.has_negative_zero else code_counts[1]
+                    if measured is not None:
+                        nz = measured.zero_magnitudes if fmt.has_negative_zero else measured.zero_codes
                     else:
                         nz = int(np.count_nonzero(zero_codes()))
                     uf = nz - z - (0 if fmt.has_nan else sub_nan)
@@ -800,8 +804,8 @@ def _scan_block(
 
                         acc.note("underflow", limit, uf_mask, loc, at)
                     if fmt.has_subnormals:
-                        if code_counts is not None:
-                            sb = code_counts[2]
+                        if measured is not None:
+                            sb = measured.subnormal
                         else:
                             sb = int(np.count_nonzero(sub_codes()))
                         acc.subnormal += sb
@@ -810,11 +814,11 @@ def _scan_block(
             # ----- errors of the compared elements
             compared = k - nbad
             acc.compared += compared
-            acc.exact += int(np.count_nonzero(err == 0)) - nbad
+            acc.exact += measured.exact if measured is not None else int(np.count_nonzero(err == 0)) - nbad
             if compared:
-                emax = float(err.max())
+                emax = measured.max_err if measured is not None else float(err.max())
                 acc.max_abs = max(acc.max_abs, emax)
-                rmax = float(rel.max())
+                rmax = measured.max_rel if measured is not None else float(rel.max())
                 acc.max_rel = max(acc.max_rel, rmax)
                 # squares summed with einsum (not BLAS dot: same result on every machine)
                 acc.sum_err2 += float(np.einsum("i,i->", err, err))
@@ -832,8 +836,8 @@ def _scan_block(
                     acc.sum_x2 += float(np.einsum("i,i->", sq, sq))
                 if codes is not None:
                     assert fmt is not None  # codes come from a plain format
-                    if code_counts is not None:
-                        ue = np.multiply(buf["u"][:k], err, out=sq)
+                    if measured is not None:
+                        ue = buf["u"][:k]
                     elif fmt.bits <= 16:
                         ue = np.take(_inv_ulp_table(fmt), ci, out=sq, mode="wrap")
                         np.multiply(ue, err, out=ue)
@@ -841,7 +845,7 @@ def _scan_block(
                         with np.errstate(invalid="ignore"):
                             uq = ulp(q, fmt)
                             ue = np.where(np.isfinite(uq), err / uq, 0.0)
-                    acc.max_ulp = max(acc.max_ulp, float(ue.max()))
+                    acc.max_ulp = max(acc.max_ulp, measured.max_ulp if measured is not None else float(ue.max()))
                     acc.sum_ulp += float(ue.sum())
                 if acc.hist is not None:
                     if compiled:
