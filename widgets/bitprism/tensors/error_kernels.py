@@ -24,7 +24,7 @@ import numpy as np
 from .partials import REL_BASE, REL_BINS, REL_SHIFT
 from .pattern_counts import compiled_available, make_jit
 
-__all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes"]
+__all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes", "range_counts", "range_values"]
 
 
 def available() -> bool:
@@ -76,6 +76,25 @@ def bucket_rel(rel: np.ndarray, hist: np.ndarray) -> int:
     """Add each relative error's bucket (``partials.rel_keys``) to ``hist``; return how many
     are exactly 1.0. ``rel``: non-negative float64, no NaN."""
     return int(_kernels()[1](rel.view(np.uint64), hist))
+
+
+def range_values(rel: np.ndarray, lo: int, hi: int) -> np.ndarray:
+    """The values of ``rel`` (non-negative float64) whose bit pattern lies in ``[lo, hi)``, in
+    order (a new array): what a refinement pass of an exact-quantile scan collects."""
+    bits = rel.view(np.uint64)
+    lo_, hi_ = np.uint64(lo), np.uint64(hi)
+    k = _kernels()
+    out = np.empty(int(k[2](bits, lo_, hi_)), np.uint64)
+    k[3](bits, lo_, hi_, out)
+    return out.view(np.float64)
+
+
+def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int) -> np.ndarray:
+    """Counts of the patterns of ``rel`` in ``[lo, hi)`` over ``bins`` sub-ranges of
+    ``2^shift`` patterns each (int64)."""
+    hist = np.zeros(bins, np.int64)
+    _kernels()[4](rel.view(np.uint64), np.uint64(lo), np.uint64(hi), np.uint64(shift), hist)
+    return hist
 
 
 @lru_cache(maxsize=1)
@@ -148,4 +167,28 @@ def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
             hist[min(k, last)] += 1
         return ones
 
-    return measure, buckets
+    @jit
+    def in_range(bits, lo, hi):  # type: ignore[no-untyped-def]
+        n = 0
+        width = hi - lo
+        for i in range(bits.size):
+            n += (bits[i] - lo) < width  # unsigned: below lo wraps past the width
+        return n
+
+    @jit
+    def take_range(bits, lo, hi, out):  # type: ignore[no-untyped-def]
+        m = 0
+        for i in range(bits.size):
+            b = bits[i]
+            if b >= lo and b < hi:
+                out[m] = b
+                m += 1
+
+    @jit
+    def count_range(bits, lo, hi, shift, hist):  # type: ignore[no-untyped-def]
+        for i in range(bits.size):
+            b = bits[i]
+            if b >= lo and b < hi:
+                hist[(b - lo) >> shift] += 1
+
+    return measure, buckets, in_range, take_range, count_range

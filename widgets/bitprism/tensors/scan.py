@@ -746,6 +746,12 @@ def _scan_block(
             if collect:  # refinement pass: values or finer counts inside target ranges
                 u = rel.view(np.uint64)  # left-out elements have rel 0, below every range
                 for t_i, (lo_p, hi_p, shift, nbins) in enumerate(spec.targets[j]):  # type: ignore[index]
+                    if compiled and nbins == 0:
+                        acc.collected[t_i].append(error_kernels.range_values(rel, lo_p, hi_p))
+                        continue
+                    if compiled:
+                        acc.collected[t_i].append(error_kernels.range_counts(rel, lo_p, hi_p, shift, nbins))
+                        continue
                     sel = u[(u >= np.uint64(lo_p)) & (u < np.uint64(hi_p))]
                     if nbins == 0:
                         acc.collected[t_i].append(sel.view(np.float64))
