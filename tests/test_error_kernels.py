@@ -13,6 +13,7 @@ import pytest
 import bitprism.tensors.error_kernels as ek
 import bitprism.tensors.scan as scan_mod
 from bitprism.formats import get_format
+from bitprism.tensors import sub_ranges
 from bitprism.tensors.partials import REL_BINS, rel_keys
 from bitprism.tensors.scan import scan
 from test_scan import wide_data
@@ -134,12 +135,40 @@ def test_scan_same_with_block_formats(monkeypatch) -> None:
     same_scan(fast, ref)
 
 
+def counts_by_python(u: np.ndarray, lo: int, hi: int, shift: int, bins: int) -> np.ndarray:
+    """``sub_ranges.layout`` counts one element at a time with Python integers."""
+    n_log = sub_ranges.log_bins(hi - lo)
+    out = np.zeros(sub_ranges.layout(lo, hi, bins), np.int64)
+    for p in (int(v) for v in u):
+        if lo <= p < hi:
+            out[(p - lo) >> shift] += 1
+            if n_log:
+                out[bins + sub_ranges._log_key(hi - 1 - p)] += 1
+                out[bins + n_log + sub_ranges._log_key(p - lo)] += 1
+    return out
+
+
+def test_log_keys_match_python() -> None:
+    rng = np.random.default_rng(5)
+    d = np.concatenate([np.array([0, 1, 2, 1023, 1024, 1025, 2**20, 2**53 - 1], np.uint64),
+                        rng.integers(0, 2**53, 5000, dtype=np.uint64)])
+    keys = sub_ranges.log_keys(d)
+    assert keys.tolist() == [sub_ranges._log_key(int(v)) for v in d]
+    order = np.argsort(d, kind="stable")
+    assert np.all(np.diff(keys[order]) >= 0)  # keys grow with the distance
+    for v, k in zip(d.tolist(), keys.tolist()):
+        a, b = sub_ranges._log_span(k)
+        assert a <= v < b and (b - a) <= max(1, v >> sub_ranges.LOG_BITS)
+
+
 @needs_numba
 def test_range_values_and_counts() -> None:
     rng = np.random.default_rng(7)
-    rel = np.concatenate([np.exp2(rng.uniform(-30, 3, 20_000)), np.zeros(50), np.full(9, np.inf)])
+    rel = np.concatenate([np.exp2(rng.uniform(-30, 3, 6_000)), np.zeros(50), np.full(9, np.inf),
+                          1.0 - np.exp2(-rng.uniform(1, 50, 3_000))])
     u = rel.view(np.uint64)
-    edges = [1, int(u[5]), int(u[5]) + 1, 0x3FE0000000000000, 0x3FF0000000000000, 0x7FF0000000000001]
+    edges = [1, int(u[5]), int(u[5]) + 1, 0x3FE0000000000000, 0x3FEFE00000000000, 0x3FF0000000000000,
+             0x7FF0000000000001]
     for lo in edges:
         for hi in edges:
             if hi <= lo:
@@ -149,8 +178,34 @@ def test_range_values_and_counts() -> None:
             width = hi - lo
             shift = max(0, width.bit_length() - 10)
             bins = ((width - 1) >> shift) + 1
-            want = np.bincount(((u[inside] - np.uint64(lo)) >> np.uint64(shift)).astype(np.intp), minlength=bins)
-            assert np.array_equal(ek.range_counts(rel, lo, hi, shift, bins), want)
+            got = ek.range_counts(rel, lo, hi, shift, bins, sub_ranges.log_bins(width))
+            assert np.array_equal(got, counts_by_python(u, lo, hi, shift, bins))
+
+
+def test_pick_holds_the_rank() -> None:
+    """The sub-range ``pick`` returns holds the wanted element at the rank it says, and as many
+    elements as it says; values piled against either end (as relative errors just below 1 are
+    after saturation) land in small sub-ranges, where even sub-ranges alone would not do."""
+    rng = np.random.default_rng(11)
+    lo, hi = 0x3FE0000000000000, 0x3FF0000000000000  # [0.5, 1.0) as IEEE 754 binary64 patterns
+    width = hi - lo
+    shift = max(0, width.bit_length() - 16)
+    bins = ((width - 1) >> shift) + 1
+    cases = {"top pile": 1.0 - np.exp2(-rng.uniform(2, 50, 20_000)),
+             "spread": rng.uniform(0.5, 1.0, 20_000),
+             "bottom pile": 0.5 + np.exp2(-rng.uniform(2, 50, 20_000))}
+    for name, vals in cases.items():
+        u = np.sort(vals.view(np.uint64))
+        counts = counts_by_python(u, lo, hi, shift, bins)
+        for rank in (0, 9_999, 19_800, 19_999):
+            a, b, r, c = sub_ranges.pick(lo, hi, shift, bins, counts, rank)
+            inside = u[(u >= np.uint64(a)) & (u < np.uint64(b))]
+            assert inside.size == c and inside[r] == u[rank], (name, rank)
+            assert c <= 200, (name, rank, c)
+        even_only = counts[:bins]
+        if name != "spread":  # a rank inside the pile
+            i = int(np.searchsorted(np.cumsum(even_only), 19_800 if name == "top pile" else 200, side="right"))
+            assert even_only[i] > 2_000  # the pile sits in one or two even sub-ranges
 
 
 @needs_numba

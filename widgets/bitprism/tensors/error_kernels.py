@@ -22,6 +22,7 @@ from typing import Any, Callable
 import numpy as np
 
 from .partials import REL_BASE, REL_BINS, REL_SHIFT
+from .sub_ranges import LOG_BITS
 from .pattern_counts import compiled_available, make_jit
 
 __all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes", "range_counts", "range_values"]
@@ -89,11 +90,12 @@ def range_values(rel: np.ndarray, lo: int, hi: int) -> np.ndarray:
     return out.view(np.float64)
 
 
-def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int) -> np.ndarray:
-    """Counts of the patterns of ``rel`` in ``[lo, hi)`` over ``bins`` sub-ranges of
-    ``2^shift`` patterns each (int64)."""
-    hist = np.zeros(bins, np.int64)
-    _kernels()[4](rel.view(np.uint64), np.uint64(lo), np.uint64(hi), np.uint64(shift), hist)
+def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int, log_bins: int) -> np.ndarray:
+    """Counts of the patterns of ``rel`` in ``[lo, hi)``, laid out as ``sub_ranges.layout``
+    says: over ``bins`` sub-ranges of ``2^shift`` patterns, then ``log_bins`` by distance from
+    the top and ``log_bins`` by distance from the bottom (``sub_ranges.log_keys``)."""
+    hist = np.zeros(bins + 2 * log_bins, np.int64)
+    _kernels()[4](rel.view(np.uint64), np.uint64(lo), np.uint64(hi), np.uint64(shift), bins, log_bins, hist)
     return hist
 
 
@@ -184,11 +186,24 @@ def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
                 out[m] = b
                 m += 1
 
+    log_bits = LOG_BITS
+
     @jit
-    def count_range(bits, lo, hi, shift, hist):  # type: ignore[no-untyped-def]
+    def count_range(bits, lo, hi, shift, bins, n_log, hist):  # type: ignore[no-untyped-def]
+        top = hi - np.uint64(1)
+        # bit lengths from the exponent field of the distance as a float64 (exact below 2^53;
+        # 0 gives a field of 0): numba's math.frexp is a call, ten times slower
+        f = np.empty(1, np.float64)
+        fb = f.view(np.uint64)
         for i in range(bits.size):
             b = bits[i]
             if b >= lo and b < hi:
                 hist[(b - lo) >> shift] += 1
+                if n_log:
+                    for d, base in ((top - b, bins), (b - lo, bins + n_log)):
+                        f[0] = np.float64(d)
+                        e = np.int64(fb[0] >> np.uint64(52)) - 1022
+                        s = max(0, e - (log_bits + 1))
+                        hist[base + (s << log_bits) + np.int64(d >> np.uint64(s))] += 1
 
     return measure, buckets, in_range, take_range, count_range

@@ -32,10 +32,12 @@ Quantiles (``quantiles=``):
   all compared elements. Small inputs (at most ``KEEP_VALUES`` elements) keep the values. Larger
   ones take more passes over the data: the first builds the relative-error histogram, which
   puts each needed order statistic in a bucket; each further pass counts the elements of those
-  buckets in 2^16 finer sub-ranges of float64 bit patterns, until a range holds at most
-  ``_CAP`` elements (and all ranges of one pass at most ``_BUDGET``, 32 MiB of values), whose
-  values are then collected and the order statistic picked by ``np.partition``; in practice
-  one extra pass, casting only the formats still asking. Order statistics that the
+  buckets in finer sub-ranges of float64 bit patterns (2^16 even ones, and ones that grow with
+  the distance from either end, for values piled against an end: ``sub_ranges``), until a
+  range holds at most ``_CAP`` elements (and all ranges of one pass at most ``_BUDGET``, 32 MiB
+  of values), whose values are then collected and the order statistic picked by
+  ``np.partition``; in practice one or two extra passes, casting only the formats still
+  asking. Order statistics that the
   counts alone decide — 0 for values that survive exactly, exactly 1 for values flushed to
   zero — need no further pass. Peak memory stays bounded by the block, not the tensor.
 * ``"histogram"``: one pass; each order statistic is taken as the middle of its histogram
@@ -97,6 +99,7 @@ from ..numerics.inspect import ulp
 from ..numerics.kernel import table_codes, table_eligible, table_index
 from ..numerics.options import CastOptions
 from . import counts_only, error_kernels
+from .sub_ranges import layout, log_bins, log_keys, pick
 from .partials import (
     EXP_OFFSET,
     REL_BASE,
@@ -749,15 +752,20 @@ def _scan_block(
                     if compiled and nbins == 0:
                         acc.collected[t_i].append(error_kernels.range_values(rel, lo_p, hi_p))
                         continue
+                    n_log = log_bins(hi_p - lo_p) if nbins else 0
                     if compiled:
-                        acc.collected[t_i].append(error_kernels.range_counts(rel, lo_p, hi_p, shift, nbins))
+                        acc.collected[t_i].append(error_kernels.range_counts(rel, lo_p, hi_p, shift, nbins, n_log))
                         continue
                     sel = u[(u >= np.uint64(lo_p)) & (u < np.uint64(hi_p))]
                     if nbins == 0:
                         acc.collected[t_i].append(sel.view(np.float64))
-                    else:
+                    else:  # counts by sub_ranges.layout
                         sub_keys = ((sel - np.uint64(lo_p)) >> np.uint64(shift)).astype(np.intp)
-                        acc.collected[t_i].append(np.bincount(sub_keys, minlength=nbins))
+                        parts = [np.bincount(sub_keys, minlength=nbins)]
+                        if n_log:
+                            parts += [np.bincount(log_keys(np.uint64(hi_p - 1) - sel), minlength=n_log),
+                                      np.bincount(log_keys(sel - np.uint64(lo_p)), minlength=n_log)]
+                        acc.collected[t_i].append(np.concatenate(parts))
                 continue
             if entry.hook is not None:
                 if nbad:
@@ -873,7 +881,8 @@ def _scan_block(
     if collect:
         fps = tuple(
             FormatPartial(rel_hist=None, collected=tuple(
-                _combine(parts, t[3]) for parts, t in zip(acc.collected, spec.targets[j])  # type: ignore[index]
+                _combine(parts, layout(t[0], t[1], t[3]) if t[3] else 0)
+                for parts, t in zip(acc.collected, spec.targets[j])  # type: ignore[index]
             ))
             for j, acc in enumerate(accs)
         )
@@ -1527,11 +1536,8 @@ def _refine(pending: list[_Request], index: dict, targets: _Targets, more: Block
         if nbins == 0:
             resolved[j][k] = float(np.partition(got, rank)[rank])
             continue
-        cum = np.cumsum(got)
-        i = int(np.searchsorted(cum, rank, side="right"))
-        below = int(cum[i - 1]) if i else 0
-        new_lo = lo_p + (i << shift)
-        out.append((j, k, new_lo, min(new_lo + (1 << shift), hi_p), rank - below, int(got[i])))
+        new_lo, new_hi, new_rank, count = pick(lo_p, hi_p, shift, nbins, got, rank)
+        out.append((j, k, new_lo, new_hi, new_rank, count))
     return out
 
 
