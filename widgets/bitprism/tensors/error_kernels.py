@@ -90,13 +90,13 @@ def range_values(rel: np.ndarray, lo: int, hi: int) -> np.ndarray:
     return out.view(np.float64)
 
 
-def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int, log_bins: int) -> np.ndarray:
-    """Counts of the patterns of ``rel`` in ``[lo, hi)``, laid out as ``sub_ranges.layout``
-    says: over ``bins`` sub-ranges of ``2^shift`` patterns, then ``log_bins`` by distance from
-    the top and ``log_bins`` by distance from the bottom (``sub_ranges.log_keys``)."""
-    hist = np.zeros(bins + 2 * log_bins, np.int64)
+def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int, log_bins: int,
+                 hist: np.ndarray) -> None:
+    """Add to ``hist`` the counts of the patterns of ``rel`` in ``[lo, hi)``, laid out as
+    ``sub_ranges.layout`` says: over ``bins`` sub-ranges of ``2^shift`` patterns, then
+    ``log_bins`` by distance from the top and ``log_bins`` by distance from the bottom
+    (``sub_ranges.log_keys``)."""
     _kernels()[4](rel.view(np.uint64), np.uint64(lo), np.uint64(hi), np.uint64(shift), bins, log_bins, hist)
-    return hist
 
 
 @lru_cache(maxsize=1)

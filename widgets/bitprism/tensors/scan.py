@@ -753,19 +753,22 @@ def _scan_block(
                         acc.collected[t_i].append(error_kernels.range_values(rel, lo_p, hi_p))
                         continue
                     n_log = log_bins(hi_p - lo_p) if nbins else 0
+                    if nbins and not acc.collected[t_i]:  # one running count per block
+                        acc.collected[t_i].append(np.zeros(layout(lo_p, hi_p, nbins), np.int64))
                     if compiled:
-                        acc.collected[t_i].append(error_kernels.range_counts(rel, lo_p, hi_p, shift, nbins, n_log))
+                        error_kernels.range_counts(rel, lo_p, hi_p, shift, nbins, n_log, acc.collected[t_i][0])
                         continue
                     sel = u[(u >= np.uint64(lo_p)) & (u < np.uint64(hi_p))]
                     if nbins == 0:
                         acc.collected[t_i].append(sel.view(np.float64))
                     else:  # counts by sub_ranges.layout
+                        counts = acc.collected[t_i][0]
                         sub_keys = ((sel - np.uint64(lo_p)) >> np.uint64(shift)).astype(np.intp)
-                        parts = [np.bincount(sub_keys, minlength=nbins)]
+                        counts[:nbins] += np.bincount(sub_keys, minlength=nbins)
                         if n_log:
-                            parts += [np.bincount(log_keys(np.uint64(hi_p - 1) - sel), minlength=n_log),
-                                      np.bincount(log_keys(sel - np.uint64(lo_p)), minlength=n_log)]
-                        acc.collected[t_i].append(np.concatenate(parts))
+                            counts[nbins : nbins + n_log] += np.bincount(
+                                log_keys(np.uint64(hi_p - 1) - sel), minlength=n_log)
+                            counts[nbins + n_log :] += np.bincount(log_keys(sel - np.uint64(lo_p)), minlength=n_log)
                 continue
             if entry.hook is not None:
                 if nbad:
