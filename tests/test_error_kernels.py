@@ -20,15 +20,18 @@ from test_scan import wide_data
 
 needs_numba = pytest.mark.skipif(not ek.available(), reason="numba not installed")
 
-SMALL = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float8_e4m3fnuz", "float6_e3m2fn",
+SMALL = ("bfloat16", "float16", "float8_e4m3fn", "float8_e4m3fnuz", "float8_e5m2fnuz", "float8_e5m2", "float6_e3m2fn",
          "float6_e2m3fn", "float4_e2m1fn", "float8_e8m0fnu")
 
 
 @needs_numba
+@pytest.mark.parametrize("compact", [False, True], ids=["full tables", "compact tables"])
 @pytest.mark.parametrize("name", SMALL)
-def test_measure_codes_every_code(name: str) -> None:
+def test_measure_codes_every_code(name: str, compact: bool) -> None:
     """Every code of the format, against inputs near its value and non-finite ones, held to
-    the numpy operations the general path does (take, subtract, abs, fmax, divide)."""
+    the numpy operations the general path does (take, subtract, abs, fmax, divide), with the
+    full float64 tables and with the compact ones the scan passes (float32 values, 1/ulp by
+    exponent field)."""
     fmt = get_format(name)
     codes = np.arange(1 << fmt.bits, dtype=fmt.code_dtype)
     codes = np.concatenate([codes, codes[::-1], codes])
@@ -45,7 +48,8 @@ def test_measure_codes_every_code(name: str) -> None:
     err, rel, ue = np.empty(codes.size), np.empty(codes.size), np.empty(codes.size)
     bad = np.empty(codes.size, bool)
     top = (1 << fmt.t) - 1 if fmt.has_subnormals else 0
-    got = ek.measure_codes(codes, x, den, values, inv, fmt.magnitude_mask, top, err, rel, ue, bad)
+    tables = scan_mod._measure_tables(fmt) if compact else (values, inv, (1 << fmt.bits) - 1, 0)
+    got = ek.measure_codes(codes, x, den, *tables, fmt.magnitude_mask, top, err, rel, ue, bad)
     with np.errstate(invalid="ignore"):
         e = np.abs(np.take(values, idx) - x)
     want_bad = np.isnan(e)

@@ -53,6 +53,8 @@ def measure_codes(
     den: np.ndarray,
     values: np.ndarray,
     inv_ulp: np.ndarray,
+    inv_mask: int,
+    inv_shift: int,
     magnitude_mask: int,
     subnormal_top: int,
     err: np.ndarray,
@@ -61,12 +63,14 @@ def measure_codes(
     bad: np.ndarray,
 ) -> CodeErrors:
     """Fill ``err = |values[codes] - x|`` (0 where NaN, flagged in ``bad``), ``rel = err / den``
-    and ``ue = inv_ulp[codes] * err``. ``values`` holds NaN for codes whose error is left out
-    (NaN and Inf), ``x`` NaN at non-finite inputs; ``subnormal_top``: the largest subnormal
-    magnitude code (0: none)."""
+    and ``ue = inv_ulp[(codes & inv_mask) >> inv_shift] * err``. ``values`` (float32 or
+    float64, converted exactly) holds NaN for codes whose error is left out (NaN and Inf),
+    ``x`` NaN at non-finite inputs; ``subnormal_top``: the largest subnormal magnitude code
+    (0: none)."""
+    t = codes.dtype.type
     out = _kernels()[0](
-        codes, x, den, values, inv_ulp, codes.dtype.type(magnitude_mask),
-        codes.dtype.type(subnormal_top), err, rel, ue, bad,
+        codes, x, den, values, inv_ulp, t(inv_mask), t(inv_shift), t(magnitude_mask),
+        t(subnormal_top), err, rel, ue, bad,
     )
     (n_bad, n_exact, mag0, code0, n_sub), (e_max, r_max, u_max) = out
     return CodeErrors(int(n_bad), int(n_exact), int(mag0), int(code0), int(n_sub),
@@ -110,14 +114,14 @@ def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
     one = np.uint64(0x3FF0000000000000)  # IEEE 754 binary64 pattern of 1.0
 
     @jit
-    def gather(codes, x, values, inv_ulp, mmask, sub_top, err, ue):  # type: ignore[no-untyped-def]
+    def gather(codes, x, values, inv_ulp, imask, ishift, mmask, sub_top, err, ue):  # type: ignore[no-untyped-def]
         n_mag0 = 0
         n_code0 = 0
         n_sub = 0
         for i in range(codes.size):
             c = codes[i]
-            err[i] = abs(values[c] - x[i])
-            ue[i] = inv_ulp[c]
+            err[i] = abs(np.float64(values[c]) - x[i])
+            ue[i] = inv_ulp[(c & imask) >> ishift]
             cm = c & mmask
             n_mag0 += cm == 0
             n_code0 += c == 0
@@ -154,8 +158,8 @@ def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
         return e_max, r_max, u_max
 
     @jit
-    def measure(codes, x, den, values, inv_ulp, mmask, sub_top, err, rel, ue, bad):  # type: ignore[no-untyped-def]
-        n_mag0, n_code0, n_sub = gather(codes, x, values, inv_ulp, mmask, sub_top, err, ue)
+    def measure(codes, x, den, values, inv_ulp, imask, ishift, mmask, sub_top, err, rel, ue, bad):  # type: ignore[no-untyped-def]
+        n_mag0, n_code0, n_sub = gather(codes, x, values, inv_ulp, imask, ishift, mmask, sub_top, err, ue)
         n_bad, n_exact = settle(err, den, rel, ue, bad)
         return (n_bad, n_exact, n_mag0, n_code0, n_sub), maxima(err, rel, ue)
 

@@ -402,6 +402,31 @@ def _nan_value_table(fmt: Format) -> np.ndarray:
     return t
 
 
+@lru_cache(maxsize=64)
+def _measure_tables(fmt: Format) -> tuple[np.ndarray, np.ndarray, int, int]:
+    """Compact tables for ``error_kernels.measure_codes``: (values, 1/ulp, mask, shift). A
+    16-bit format's float64 tables take 1 MiB, and random lookups there miss the cache: the
+    values fit float32 exactly, and 1/ulp depends on the exponent field alone. Each compact
+    table is checked against the full one here, entry by entry, and the full one is kept when
+    they differ anywhere it matters (finite values)."""
+    values, inv = _nan_value_table(fmt), _inv_ulp_table(fmt)
+    codes = np.arange(values.size, dtype=np.int64)
+    finite = ~np.isnan(values)
+    v32 = values.astype(np.float32)
+    if np.array_equal(v32.astype(np.float64), values, equal_nan=True):
+        values = v32
+    mask, shift = (1 << fmt.bits) - 1, 0
+    if fmt.bits > 8:
+        m, t = fmt.magnitude_mask, fmt.t
+        compact = np.zeros((m >> t) + 1)
+        compact[(codes[finite] & m) >> t] = inv[finite]
+        if np.array_equal(compact[(codes[finite] & m) >> t], inv[finite]):
+            inv, mask, shift = compact, m, t
+    values.setflags(write=False)
+    inv.setflags(write=False)
+    return values, inv, mask, shift
+
+
 def _fast_cast(entry: _Entry, spec: _Spec) -> str:
     """How a scan casts float32 data into a plain format: "table" (one gather per element from
     the kernel's table, the index shared by every such format) or "kernel" (``encode``).
@@ -711,9 +736,8 @@ def _scan_block(
                         )
                 if fmt.bits <= 16 and compiled:
                     measured = error_kernels.measure_codes(
-                        codes, xe, den, _nan_value_table(fmt), _inv_ulp_table(fmt),
-                        fmt.magnitude_mask, (1 << fmt.t) - 1 if fmt.has_subnormals else 0,
-                        err, rel, buf["u"][:k], nanbool[:k],
+                        codes, xe, den, *_measure_tables(fmt), fmt.magnitude_mask,
+                        (1 << fmt.t) - 1 if fmt.has_subnormals else 0, err, rel, buf["u"][:k], nanbool[:k],
                     )
                     nan_table = True
                 elif fmt.bits <= 16:
