@@ -10,7 +10,8 @@ Measured on 64K float32 elements cast to float8_e4m3fn, one core with AVX2: abou
 numpy against 300 us plus 180 us for the histogram. Every number they produce is the same IEEE
 operation numpy does on the same operands, an integer count or a maximum, and the sums stay
 numpy's, so a scan gives the same result with and without numba; tests hold the two paths
-equal. ``BITPRISM_NUMBA=0`` or a missing numba uses numpy.
+equal. ``range_values`` and ``range_counts`` do the selections of an exact-quantile refinement
+pass (``sub_ranges``). ``BITPRISM_NUMBA=0`` or a missing numba uses numpy.
 """
 
 from __future__ import annotations
@@ -22,8 +23,8 @@ from typing import Any, Callable
 import numpy as np
 
 from .partials import REL_BASE, REL_BINS, REL_SHIFT
-from .sub_ranges import LOG_BITS
 from .pattern_counts import compiled_available, make_jit
+from .sub_ranges import LOG_BITS
 
 __all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes", "range_counts", "range_values"]
 
@@ -104,7 +105,7 @@ def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int, log_b
 
 
 @lru_cache(maxsize=1)
-def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
+def _kernels() -> tuple[Callable[..., Any], ...]:
     jit = make_jit()
     fast_jit = make_jit(fastmath={"nnan"})  # maxima of NaN-free arrays: lets them vectorize
     first = np.uint64(REL_BASE << REL_SHIFT)  # patterns below the first edge go to bucket 0
