@@ -825,12 +825,15 @@ def _scan_block(
                 # underflow and subnormal from the codes (the cast's actual outcome)
                 assert fmt is not None and codes is not None  # set by the plain-format cast
                 if fmt.has_zero:
-                    mags = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))
+                    # masks of zero and subnormal codes, built only where the counts need them
+                    # (no compiled counts) or positions are still wanted
+                    def zero_codes(codes: np.ndarray = codes, fmt: Format = fmt) -> np.ndarray:
+                        if not fmt.has_negative_zero:
+                            return codes == 0
+                        return np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask)) == 0
 
-                    def zero_codes(cm: np.ndarray = mags, codes: np.ndarray = codes) -> np.ndarray:
-                        return cm == 0 if fmt.has_negative_zero else codes == 0
-
-                    def sub_codes(cm: np.ndarray = mags) -> np.ndarray:
+                    def sub_codes(codes: np.ndarray = codes, fmt: Format = fmt) -> np.ndarray:
+                        cm = np.bitwise_and(codes, codes.dtype.type(fmt.magnitude_mask))
                         return np.subtract(cm, cm.dtype.type(1)) < cm.dtype.type((1 << fmt.t) - 1)
 
                     if measured is not None:
