@@ -98,7 +98,7 @@ from ..numerics.codes import decode, encode, value_table
 from ..numerics.inspect import ulp
 from ..numerics.kernel import table_codes, table_eligible, table_index
 from ..numerics.options import CastOptions
-from . import counts_only, error_kernels
+from . import counts_only, error_kernels, fast_casts
 from .sub_ranges import layout, log_bins, log_keys, pick
 from .partials import (
     EXP_OFFSET,
@@ -723,6 +723,9 @@ def _scan_block(
                 assert fmt is not None  # entries without a hook are plain formats
                 if how == "table":
                     codes = np.take(table_codes(fmt, spec.options), tidx, out=codebufs[fmt.code_dtype][:k])
+                elif not wide and spec.scale is None and fast_casts.eligible(fmt, spec.options):
+                    # float16 / bfloat16 with the default options: compiled, same codes
+                    codes = fast_casts.cast16(np.ascontiguousarray(carrier), fmt, codebufs[fmt.code_dtype][:k])
                 else:
                     src = x64 if spec.scale is not None or wide else xs
                     with np.errstate(invalid="ignore", over="ignore"):  # NaN/Inf inputs are expected
