@@ -58,7 +58,8 @@ def cast16(x: np.ndarray, fmt: Format, out: np.ndarray) -> np.ndarray:
 
 @lru_cache(maxsize=64)
 def _kind(fmt: Format) -> int | None:
-    """0 for IEEE-style bfloat16, 1 for binary16 (the layout, not the name), else None."""
+    """0 for the built-in bfloat16, 1 for float16 (binary16), else None (a user-made format
+    with the same layout takes encode)."""
     for k, name in enumerate(("bfloat16", "float16")):
         if fmt == get_format(name):
             return k
