@@ -8,9 +8,9 @@ compiled kernel reads each cache-sized chunk from memory once: one pass of reduc
 extreme finite values, and the counts of zeros, Inf/NaN, NaN and +Inf) settles the cuts that
 lie outside the chunk's finite range, and the others are compared eight at a time (vector
 compares on the signed integer of the pattern's width; the cost is about one compare and one
-subtraction per element and cut, so it grows with the number of formats). ``numba`` is optional (the ``fast`` extra); without it, and with
-``BITPRISM_NUMBA=0`` in the environment, the same numbers come from numpy. Tests hold the two
-equal on every kind of pattern.
+subtraction per element and cut, so it grows with the number of formats). ``numba`` is
+optional (the ``fast`` extra); without it, and with ``BITPRISM_NUMBA=0`` in the environment,
+the same numbers come from numpy. Tests hold the two equal on every kind of pattern.
 """
 
 from __future__ import annotations
