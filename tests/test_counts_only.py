@@ -50,11 +50,12 @@ def py_counts(bits: np.ndarray, f: dict, cuts: list[int]) -> dict:
     mask, inf, sign = f["mask"], f["inf"], f["sign"]
     pos = [v for v in vals if 0 < v < inf]
     neg = [v for v in vals if sign < v < sign + inf]
+    mags = [v & mask for v in pos + neg]
     return dict(
         at_least=[sum(1 for v in vals if v & mask >= c) for c in cuts],
         pos_inf=sum(1 for v in vals if v == inf),
-        pos_max=max(pos, default=None), pos_min=min(pos, default=None),
-        neg_max=max(neg, default=None), neg_min=min(neg, default=None),
+        pos_max=max(pos, default=None), neg_max=max(neg, default=None),
+        min_magnitude=min(mags, default=None),
         exponents=np.bincount([(v & mask) >> f["t"] for v in vals], minlength=(inf >> f["t"]) + 1),
     )
 
@@ -63,13 +64,13 @@ def check_counts(bits: np.ndarray, f: dict, cuts: list[int], compiled: bool) -> 
     got = pc.block_counts(bits, f["t"], np.array(cuts, f["dtype"]), True, compiled=compiled)
     want = py_counts(bits, f, cuts)
     assert [int(v) for v in got.at_least] == want["at_least"]
-    for k in ("pos_inf", "pos_max", "pos_min", "neg_max", "neg_min"):
+    for k in ("pos_inf", "pos_max", "neg_max", "min_magnitude"):
         assert getattr(got, k) == want[k], k
     assert got.exponents is not None and np.array_equal(got.exponents, want["exponents"])
 
 
 @pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
-@pytest.mark.parametrize("n", [1, 7, 2047, 2048, 2049, 5000])
+@pytest.mark.parametrize("n", [1, 7, pc.CHUNK - 1, pc.CHUNK, pc.CHUNK + 1, 2 * pc.CHUNK + 900])
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 def test_block_counts_on_every_kind_of_pattern(f: dict, n: int, compiled: bool) -> None:
     if compiled and not pc.compiled_available():
@@ -115,6 +116,69 @@ def test_block_counts_chunks_without_specials(f: dict) -> None:
 )
 def test_block_counts_property(values: list[int], cuts: list[int]) -> None:
     check_counts(np.array(values, np.uint32), F32, sorted(cuts), True)
+
+
+def near_cuts(f: dict, cuts: list[int], rng: np.random.Generator, n: int) -> np.ndarray:
+    """n patterns of both signs at and around the cuts: c - 2 .. c + 2, and c plus or minus
+    half and one step of the key (2^KEY_SHIFT), where a key-based count would go wrong first."""
+    step = 1 << pc.KEY_SHIFT[np.dtype(f["dtype"])]
+    near = sorted({c + d for c in cuts for d in (-step, -step // 2, -2, -1, 0, 1, 2, step // 2, step)
+                   if 0 <= c + d <= f["mask"]})
+    mags = rng.choice(np.array(near, f["dtype"]), n)
+    return mags | (rng.integers(0, 2, n).astype(f["dtype"]) * f["dtype"](f["sign"]))
+
+
+@needs_numba
+@pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
+def test_block_counts_at_key_steps(f: dict) -> None:
+    """Cuts on multiples of the key step and one above (counted on keys), at other
+    remainders (counted on full patterns, more than the two of the first loop), more than
+    eight of each: every element sits next to a cut, so an off-by-one in a key bound or a
+    count taken from the wrong slot shows."""
+    rng = np.random.default_rng(11)
+    step = 1 << pc.KEY_SHIFT[np.dtype(f["dtype"])]
+    tops = rng.integers(1, f["inf"] // step, 12)
+    cuts = {1, f["inf"], f["inf"] + 1}
+    cuts |= {int(q) * step for q in tops[:6]} | {int(q) * step + 1 for q in tops[6:]}
+    cuts |= {int(q) * step + int(r) for q, r in zip(tops, rng.integers(2, step, 12))}
+    cuts |= {step, step + 1, f["inf"] - 1}
+    cuts = sorted(cuts)
+    bits = near_cuts(f, cuts, rng, 3 * pc.CHUNK + 5)
+    check_counts(bits, f, cuts, True)
+
+
+@needs_numba
+def test_block_counts_when_the_live_cuts_change_between_chunks() -> None:
+    """Chunk by chunk, the data moves to other binades: full-width cuts live in one chunk are
+    settled in the next, so the two of the first loop change (they follow the previous
+    chunk) and the others are compared in passes of their own."""
+    f = F32
+    rng = np.random.default_rng(12)
+    # float16 and bfloat16 thresholds are not on key steps (IEEE 754 binary16: largest finite
+    # 65504, so 65520 rounds up; smallest normal 2^-14)
+    odd = [0x387FE000, 0x3A7FF000, 0x3F7FF000, 0x477FF000, 0x4B7FF000, 0x7F7F8000]
+    cuts = sorted({1, 0x3F800000, 0x3F800001, f["inf"], f["inf"] + 1, *odd})
+    pieces = []
+    for lo, hi in [(0x38000000, 0x3B000000), (0x46000000, 0x4C000000), (0x3F000000, 0x3F900000),
+                   (0x00000001, 0x7F800000), (0x38000000, 0x3B000000)]:
+        pieces.append(rng.integers(lo, hi, pc.CHUNK, dtype=np.uint32))
+    pieces.append(near_cuts(f, cuts, rng, pc.CHUNK))
+    check_counts(np.concatenate(pieces), f, cuts, True)
+
+
+@needs_numba
+@settings(max_examples=40, deadline=None)
+@given(st.data())
+def test_block_counts_property_near_key_steps(data: st.DataObject) -> None:
+    """Random cuts on and off the key steps, and patterns around them."""
+    step = 1 << pc.KEY_SHIFT[np.dtype(np.uint32)]
+    tops = data.draw(st.lists(st.integers(0, (2**31 - 1) // step), min_size=1, max_size=20))
+    rems = data.draw(st.lists(st.sampled_from([0, 1, 1, 2, step - 1, step // 2]),
+                              min_size=len(tops), max_size=len(tops)))
+    cuts = sorted({min(max(q * step + r, 1), 2**31 - 1) for q, r in zip(tops, rems)})
+    seed = data.draw(st.integers(0, 2**32 - 1))
+    n = data.draw(st.integers(1, 2 * pc.CHUNK + 3))
+    check_counts(near_cuts(F32, cuts, np.random.default_rng(seed), n), F32, cuts, True)
 
 
 def test_block_counts_refuses_bad_cuts() -> None:

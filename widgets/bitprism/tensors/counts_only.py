@@ -184,15 +184,18 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
 
 def _extremes(bc: BlockCounts, pinf: int, ninf: int, zero: int, dt: np.dtype) -> tuple[float, float]:
     """(min, max) over the non-NaN values of the block (Inf included) from the extreme
-    patterns; (Inf, -Inf) when there is none, as ``InputPartial`` expects."""
+    patterns; (Inf, -Inf) when there is none, as ``InputPartial`` expects. Without positive
+    values or zero the largest value is minus the smallest magnitude (all are negative), and
+    the other way round for the smallest value."""
+    sign = 1 << (dt.itemsize * 8 - 1)
     if pinf:
         hi = math.inf
     elif bc.pos_max is not None:
         hi = _value(bc.pos_max, dt)
     elif zero:
         hi = 0.0
-    elif bc.neg_min is not None:
-        hi = _value(bc.neg_min, dt)
+    elif bc.min_magnitude is not None:
+        hi = _value(bc.min_magnitude | sign, dt)
     else:
         hi = -math.inf  # only -Inf (or nothing but NaN)
     if ninf:
@@ -201,8 +204,8 @@ def _extremes(bc: BlockCounts, pinf: int, ninf: int, zero: int, dt: np.dtype) ->
         lo = _value(bc.neg_max, dt)
     elif zero:
         lo = 0.0
-    elif bc.pos_min is not None:
-        lo = _value(bc.pos_min, dt)
+    elif bc.min_magnitude is not None:
+        lo = _value(bc.min_magnitude, dt)
     else:
         lo = math.inf  # only +Inf (or nothing but NaN)
     return lo, hi

@@ -4,11 +4,15 @@ A counts-only scan (``scan(..., quantiles=False)``) needs, per block of data, ho
 patterns lie at or above each of a few magnitude thresholds ("cuts": every class of a monotone
 cast is a range of ``|x|``), how many elements are exactly +Inf, the extreme finite values, and
 optionally the histogram of exponent fields. numpy needs one pass over memory per cut. The
-compiled kernel reads each cache-sized chunk from memory once: one pass of reductions (the
-extreme finite values, and the counts of zeros, Inf/NaN, NaN and +Inf) settles the cuts that
-lie outside the chunk's finite range, and the others are compared eight at a time (vector
-compares on the signed integer of the pattern's width; the cost is about one compare and one
-subtraction per element and cut, so it grows with the number of formats). ``numba`` is
+compiled kernel reads each cache-sized chunk from memory once, in a loop that takes the
+extreme finite values, counts +Inf and writes a half-width *key* per element; the cuts that lie
+outside the chunk's finite range are settled without a compare, and the others are counted
+from the chunk in cache, eight at a time: on the keys (16-bit lanes for float32 data) when the
+cut sits on a key step or one above it, which holds for zero, Inf, NaN, powers of two and the
+thresholds of formats with few significand bits, and on the full patterns otherwise (the
+thresholds of float16 and bfloat16, say). A cut costs about one compare and one subtraction
+per 16 elements on keys, per 8 on full float32 patterns, so the cost grows with the number of
+formats. ``numba`` is
 optional (the ``fast`` extra); without it, and with ``BITPRISM_NUMBA=0`` in the environment,
 the same numbers come from numpy. Tests hold the two equal on every kind of pattern.
 """
@@ -24,8 +28,13 @@ import numpy as np
 
 __all__ = ["BlockCounts", "block_counts", "compiled_available", "first_positions"]
 
-CHUNK = 2048  # elements per cache-resident chunk of the compiled kernel
+CHUNK = 4096  # elements per cache-resident chunk of the compiled kernel (counters fit int16)
+# key(a) = floor(a / 2^s) + ceil(a / 2^s) of a magnitude pattern fits the signed integer of
+# half the pattern's width with these s (int16 for uint32 patterns, int32 for uint64)
+KEY_SHIFT = {np.dtype(np.uint32): 17, np.dtype(np.uint64): 33}
 _EXT_EMPTY_MAX = 0  # sentinel of an empty "max" slot (every real pattern in it is >= 1)
+# where a cut's count comes from in a chunk, when not from its own compare
+_FROM_NONZERO, _FROM_BIG, _FROM_NAN, _FROM_NONE, _FROM_SLOT0, _FROM_SLOT1 = -1, -2, -3, -4, -5, -6
 
 
 @dataclass(frozen=True)
@@ -34,19 +43,20 @@ class BlockCounts:
 
     ``at_least[k]``: elements whose magnitude pattern (sign bit cleared) is >= ``cuts[k]``
     (NaN patterns are the largest, so they count at every cut up to theirs).
-    ``pos_inf``: elements equal to +Inf. ``pos_max``/``pos_min``: largest and smallest pattern
-    among positive nonzero finite values, ``neg_max``/``neg_min`` the same among negative ones
-    (patterns with the sign bit set; the largest is the most negative value); ``None`` when
-    the block has none. ``exponents``: elements per exponent field value (``|pattern| >> t``),
-    or ``None`` when not asked for.
+    ``pos_inf``: elements equal to +Inf. ``pos_max``: the largest pattern among positive
+    nonzero finite values, ``neg_max`` among negative ones (patterns with the sign bit set;
+    the largest is the most negative value); ``min_magnitude``: the smallest magnitude pattern
+    among nonzero finite values of either sign (the smallest value of a block with no
+    negative values and no zero, or minus the largest of one with no positive values); each
+    ``None`` when the block has none. ``exponents``: elements per exponent field value
+    (``|pattern| >> t``), or ``None`` when not asked for.
     """
 
     at_least: np.ndarray
     pos_inf: int
     pos_max: int | None
-    pos_min: int | None
     neg_max: int | None
-    neg_min: int | None
+    min_magnitude: int | None
     exponents: np.ndarray | None
 
 
@@ -93,7 +103,7 @@ def block_counts(
     if k is not None and bits.size:
         const = _constants(dtype, t)
         out = np.zeros(cuts.size + 1, np.int64)
-        ext = np.array([0, const[5], 0, const[5]], dtype)
+        ext = np.array([_EXT_EMPTY_MAX, _EXT_EMPTY_MAX, const[5]], dtype)
         n_exp = int(const[1] >> dtype.type(t)) + 1
         exps = np.zeros((4, n_exp) if exponents else (4, 1), np.int64)
         k[dtype][0](bits, const, cuts, bool(exponents), out, ext, exps)
@@ -103,14 +113,13 @@ def block_counts(
 
 def _finish(at_least: np.ndarray, pos_inf: int, ext: np.ndarray, exps: np.ndarray | None) -> BlockCounts:
     empty_min = int(np.iinfo(ext.dtype).max)
-    p_max, p_min, n_max, n_min = (int(v) for v in ext)
+    p_max, n_max, m_min = (int(v) for v in ext)
     return BlockCounts(
         at_least,
         pos_inf,
         p_max if p_max != _EXT_EMPTY_MAX else None,
-        p_min if p_min != empty_min else None,
         n_max if n_max != _EXT_EMPTY_MAX else None,
-        n_min if n_min != empty_min else None,
+        m_min if m_min != empty_min else None,
         exps,
     )
 
@@ -124,6 +133,7 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
     pos_inf = int(np.count_nonzero(bits == inf))
     pos = bits[(bits - one) < inf_m1]  # positive, nonzero, finite (0 wraps to the top)
     neg = bits[(bits - (sign + one)) < inf_m1]
+    mags = a[(a - one) < inf_m1]
     exps = None
     if exponents:
         n_exp = int(inf >> bits.dtype.type(t)) + 1
@@ -132,9 +142,8 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
         at_least,
         pos_inf,
         int(pos.max()) if pos.size else None,
-        int(pos.min()) if pos.size else None,
         int(neg.max()) if neg.size else None,
-        int(neg.min()) if neg.size else None,
+        int(mags.min()) if mags.size else None,
         exps,
     )
 
@@ -183,17 +192,140 @@ def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any]]]:
     return {np.dtype(t): _kernels_for(t, jit) for t in (np.uint32, np.uint64)}
 
 
+def _group_counter(jit: Any, V: Any, masked: bool) -> Callable[..., Any]:
+    """A compiled loop that stores, for each cut ``k`` in ``live[:nl]``, how many elements
+    ``x`` of ``data`` (``x & mask`` when ``masked``) satisfy ``x > below[k]``, all compared
+    as the signed type ``V``, into ``local[k]``. Eight cuts per pass over the chunk (four when
+    no more are left); a short group repeats its last cut (the counts are assigned, not
+    added). The two loops are unrolled by hand on purpose: a pass of four costs about half a
+    pass of eight, so a short tail takes the cheaper one."""
+
+    @jit
+    def run(data, mask, below, live, nl, local):  # type: ignore[no-untyped-def]
+        m = data.size
+        g = 0
+        while g < nl:
+            width = 8 if nl - g > 4 else 4
+            for r in range(nl, g + width):
+                live[r] = live[nl - 1]
+            k0 = live[g]
+            k1 = live[g + 1]
+            k2 = live[g + 2]
+            k3 = live[g + 3]
+            b0 = V(below[k0])
+            b1 = V(below[k1])
+            b2 = V(below[k2])
+            b3 = V(below[k3])
+            n0 = V(0)
+            n1 = V(0)
+            n2 = V(0)
+            n3 = V(0)
+            if width == 4:
+                for i in range(m):
+                    a = V(V(data[i]) & mask) if masked else V(data[i])
+                    n0 = V(n0 + V(a > b0))
+                    n1 = V(n1 + V(a > b1))
+                    n2 = V(n2 + V(a > b2))
+                    n3 = V(n3 + V(a > b3))
+            else:
+                k4 = live[g + 4]
+                k5 = live[g + 5]
+                k6 = live[g + 6]
+                k7 = live[g + 7]
+                b4 = V(below[k4])
+                b5 = V(below[k5])
+                b6 = V(below[k6])
+                b7 = V(below[k7])
+                n4 = V(0)
+                n5 = V(0)
+                n6 = V(0)
+                n7 = V(0)
+                for i in range(m):
+                    a = V(V(data[i]) & mask) if masked else V(data[i])
+                    n0 = V(n0 + V(a > b0))
+                    n1 = V(n1 + V(a > b1))
+                    n2 = V(n2 + V(a > b2))
+                    n3 = V(n3 + V(a > b3))
+                    n4 = V(n4 + V(a > b4))
+                    n5 = V(n5 + V(a > b5))
+                    n6 = V(n6 + V(a > b6))
+                    n7 = V(n7 + V(a > b7))
+                local[k4] = n4
+                local[k5] = n5
+                local[k6] = n6
+                local[k7] = n7
+            local[k0] = n0
+            local[k1] = n1
+            local[k2] = n2
+            local[k3] = n3
+            g += width
+
+    return run
+
+
 def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
-    """The kernels for patterns of numpy type ``T`` (unsigned). The counting loops work on the
-    signed integer of the same width: magnitude patterns fit it, so ``a > cut - 1`` is one
-    vector compare (AVX2 has no unsigned one) whose all-ones result is subtracted from a
-    counter of the same width. Every intermediate is cast back to its type: numba widens
-    integer arithmetic to 64 bits, which halves the lanes of each vector operation. Measured
-    on 16M float32 patterns of tests/bench_scan.py, one core with AVX2 and no AVX-512, against
-    the earlier unsigned loops with 16-bit counters and selects for the extremes: the whole
-    kernel 54.5 -> 30.6 ms, its reductions alone 21.6 -> 10.7 ms."""
-    S = np.int32 if T == np.uint32 else np.int64
-    C = S  # per-chunk counters: CHUNK fits
+    """The kernels for patterns of numpy type ``T`` (unsigned).
+
+    Each chunk is read from memory once, by a first loop on the patterns (``_first_pass``); the
+    cuts are then counted from the chunk in cache. Most cuts are counted on *keys* half the
+    width of the pattern, twice as many per vector operation: with s = ``KEY_SHIFT``,
+    ``key(a) = floor(a / 2^s) + ceil(a / 2^s)`` is monotone and steps exactly at the multiples
+    of 2^s and one above them, so for a cut ``c`` whose remainder mod 2^s is 0 or 1,
+    ``a >= c`` holds exactly when ``key(a) >= 2 (c >> s) + (c mod 2^s)``. The first loop
+    stores ``key(a) - 1 = (a >> s) + ((a - 1) >> s)`` (arithmetic shifts, so -1 for zero),
+    whose ``a - 1`` also serves the smallest magnitude. Power-of-two bounds,
+    the midpoints of formats with few significand bits and "just above a tie" cuts all have
+    that form; the others (float16's midpoints, say) are compared on the full pattern, two of
+    them inside the first loop. Compares are on signed integers (magnitudes and keys fit them),
+    so ``x > c - 1`` is one AVX2 compare, whose all-ones result is subtracted from a counter
+    of the same width. Every intermediate is cast back to its type: numba widens integer
+    arithmetic to 64 bits, which would halve the lanes of each vector operation."""
+    S = np.int64 if T == np.uint64 else np.int32  # signed pattern (full-width compares)
+    K = np.int32 if T == np.uint64 else np.int16  # key (half-width compares)
+    shift = KEY_SHIFT[np.dtype(T)]
+    key_low = T((1 << shift) - 1)
+    key_shift = T(shift)
+    s_shift = S(shift)
+    count_keys = _group_counter(jit, K, masked=False)
+    count_wide = _group_counter(jit, S, masked=True)
+
+    @jit
+    def first_pass(blk, key, s_mask, off_p, off_n, s_inf, w0, w1, with_wide):  # type: ignore[no-untyped-def]
+        """One loop over the chunk: the extreme finite patterns per sign (through offsets
+        that push every other pattern below the range), the smallest nonzero magnitude (an
+        unsigned minimum of a - 1: zero wraps to the top), the count of +Inf, the keys minus
+        one, and
+        with ``with_wide`` the counts above two full-width bounds."""
+        mx_p = S(T(s_mask) + T(1))  # the lowest signed value
+        mx_n = mx_p
+        mn = T(-1)
+        c_inf = S(0)
+        n0 = S(0)
+        n1 = S(0)
+        one = S(1)
+        if with_wide:
+            for i in range(blk.size):
+                v = S(blk[i])
+                a = S(v & s_mask)
+                mx_p = max(mx_p, S(v + off_p))
+                mx_n = max(mx_n, S(v + off_n))
+                am1 = S(a - one)
+                mn = min(mn, T(am1))
+                c_inf = S(c_inf + S(v == s_inf))
+                n0 = S(n0 + S(a > w0))
+                n1 = S(n1 + S(a > w1))
+                key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
+        else:
+            for i in range(blk.size):
+                v = S(blk[i])
+                a = S(v & s_mask)
+                mx_p = max(mx_p, S(v + off_p))
+                mx_n = max(mx_n, S(v + off_n))
+                am1 = S(a - one)
+                mn = min(mn, T(am1))
+                c_inf = S(c_inf + S(v == s_inf))
+                key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
+        return mx_p, mx_n, mn, c_inf, n0, n1
 
     @jit
     def count_chunks(bits, const, cuts, want_exps, out, ext, exps):  # type: ignore[no-untyped-def]
@@ -208,147 +340,129 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
         inf_p1 = T(inf + one)
         s_mask = S(mask)
         s_inf = S(inf)
-        s_inf_m1 = S(inf_m1)
-        s_zero = S(zero)
         # v + off_p keeps the order of positive finite patterns and sends everything else
         # below off_p (signed); v + off_n does the same for negative ones (sign flipped)
         off_p = S(T(sign - inf))
         off_n = S(T(off_p + sign))
-        s_one = S(one)
-        s_neg1 = S(T(sign + one))
-        s_lowest = S(sign)
         n = bits.size
         kc = cuts.size
         p_max = T(ext[0])
-        p_min = T(ext[1])
-        n_max = T(ext[2])
-        n_min = T(ext[3])
-        live = np.empty(kc + 8, np.int64)
-        local = np.zeros(kc, np.int64)
-        counts = np.zeros(kc, np.int64)
-        below = np.empty(kc, S)  # cut - 1, the signed bound of "a > below"
+        n_max = T(ext[1])
+        min_mag = T(ext[2])
+        # per cut: the bound of "a > below_w" (full width) and of "stored key > below_k"
+        # (key(a) >= 2 (c >> s) + rem, less one as stored, less one for ">"); cuts kc,
+        # kc + 1, kc + 2 are 1, +Inf and +Inf + 1 (nonzero, Inf or NaN, NaN): always counted
+        below_w = np.empty(kc, S)
+        below_k = np.empty(kc + 3, K)
+        exact = np.zeros(kc, np.bool_)
         for k in range(kc):
-            below[k] = S(T(cuts[k] - one)) if cuts[k] <= mask else s_mask
+            c = cuts[k]
+            below_w[k] = S(T(c - one)) if c <= mask else s_mask
+            rem = T(c & key_low)
+            if rem <= one and c <= mask:
+                exact[k] = True
+                below_k[k] = K(S(S(S(c >> key_shift) << one) + S(rem)) - S(2))
+        below_k[kc] = K(-1)
+        below_k[kc + 1] = K(S(S(inf >> key_shift) << one) - S(2))
+        below_k[kc + 2] = K(S(S(inf >> key_shift) << one) - S(1))
+        live_k = np.empty(kc + 11, np.int64)
+        live_w = np.empty(kc + 8, np.int64)
+        source = np.empty(kc, np.int64)  # per cut: >= 0 counted there, < 0 a _FROM_* case
+        local = np.zeros(kc + 3, np.int64)
+        counts = np.zeros(kc, np.int64)
+        key = np.empty(CHUNK, K)
+        # the two full-width cuts of the first loop: those live in the previous chunk
+        # (at first, the lowest candidates)
+        slot0 = -1
+        slot1 = -1
+        for k in range(kc):
+            if not exact[k] and one < cuts[k] < inf:
+                if slot0 < 0:
+                    slot0 = k
+                elif slot1 < 0:
+                    slot1 = k
         pos_inf = 0
         for s in range(0, n, CHUNK):
             e = min(n, s + CHUNK)
             blk = bits[s:e]
             m = e - s
-            # reductions: the extreme finite patterns per sign (through the offsets above and
-            # unsigned minima of v - 1, v - (sign + 1)), and how many elements are +Inf, zero,
-            # Inf or NaN, and NaN
-            mx_p = s_lowest
-            mx_n = s_lowest
-            mn_p = ones
-            mn_n = ones
-            c_inf = C(0)
-            c_zero = C(0)
-            c_big = C(0)
-            c_nan = C(0)
-            for i in range(m):
-                v = S(blk[i])
-                a = S(v & s_mask)
-                mx_p = max(mx_p, S(v + off_p))
-                mx_n = max(mx_n, S(v + off_n))
-                mn_p = min(mn_p, T(v - s_one))
-                mn_n = min(mn_n, T(v - s_neg1))
-                c_inf = C(c_inf + C(v == s_inf))
-                c_zero = C(c_zero + C(a == s_zero))
-                c_big = C(c_big + C(a > s_inf_m1))
-                c_nan = C(c_nan + C(a > s_inf))
+            w0 = below_w[slot0] if slot0 >= 0 else s_mask  # a > s_mask: never
+            w1 = below_w[slot1] if slot1 >= 0 else s_mask
+            mx_p, mx_n, mn, c_inf, n0, n1 = first_pass(
+                blk, key, s_mask, off_p, off_n, s_inf, w0, w1, slot0 >= 0
+            )
             pos_inf += c_inf
-            nonzero = m - c_zero
-            # decoded: largest and smallest positive / negative finite nonzero pattern
+            # decoded: largest positive / negative finite nonzero pattern, smallest nonzero
+            # finite magnitude
             cp_max = T(T(mx_p) - T(off_p)) if mx_p > off_p else zero
             cn_max = T(T(mx_n) - T(off_n)) if mx_n > off_p else zero
-            cp_min = T(mn_p + one) if mn_p < inf_m1 else ones
-            cn_min = T(mn_n + T(sign + one)) if mn_n < inf_m1 else ones
+            c_min = T(mn + one) if mn < inf_m1 else ones
             p_max = max(p_max, cp_max)
-            p_min = min(p_min, cp_min)
             n_max = max(n_max, cn_max)
-            n_min = min(n_min, cn_min)
+            min_mag = min(min_mag, c_min)
             # finite nonzero magnitudes of the chunk lie in [f_lo, f_hi] (f_lo > f_hi: none)
             f_hi = T(max(cp_max, T(cn_max & mask)))
-            f_lo = T(min(cp_min, T(cn_min & mask)))
-            # cuts settled without a compare: 1, +Inf and just above (counted above), as many
-            # as the cut 1 (<= f_lo: no magnitude in between) or as the cut +Inf (> f_hi),
-            # none above every magnitude; the others are compared, eight at a time
-            nl = 0
+            f_lo = c_min
+            # cuts settled without a compare: 1, +Inf and just above (always counted), as
+            # many as the cut 1 (<= f_lo: no magnitude in between) or as the cut +Inf
+            # (> f_hi), none above every magnitude; the others are counted on keys or on the
+            # full patterns
+            live_k[0] = kc
+            live_k[1] = kc + 1
+            live_k[2] = kc + 2
+            nk = 3
+            nw = 0
+            next0 = -1
+            next1 = -1
             for k in range(kc):
                 c = cuts[k]
                 if c == one or (c <= f_lo and c <= inf):
-                    local[k] = nonzero
+                    source[k] = _FROM_NONZERO
                 elif c == inf or (c > f_hi and c < inf):
-                    local[k] = c_big
+                    source[k] = _FROM_BIG
                 elif c == inf_p1:
-                    local[k] = c_nan
+                    source[k] = _FROM_NAN
                 elif c > mask:
-                    local[k] = 0
+                    source[k] = _FROM_NONE
+                elif exact[k]:
+                    source[k] = k
+                    live_k[nk] = k
+                    nk += 1
                 else:
-                    live[nl] = k
-                    nl += 1
-            g = 0
-            while g < nl:
-                # a group of eight (or four, when no more are left); a short group repeats
-                # its last cut (the counts are assigned, not added). The two loops below are
-                # unrolled by hand on purpose: a pass of four costs about half a pass of
-                # eight, so a short tail takes the cheaper one
-                width = 8 if nl - g > 4 else 4
-                for r in range(nl, g + width):
-                    live[r] = live[nl - 1]
-                k0 = live[g]
-                k1 = live[g + 1]
-                k2 = live[g + 2]
-                k3 = live[g + 3]
-                b0 = below[k0]
-                b1 = below[k1]
-                b2 = below[k2]
-                b3 = below[k3]
-                n0 = C(0)
-                n1 = C(0)
-                n2 = C(0)
-                n3 = C(0)
-                if width == 4:
-                    for i in range(m):
-                        a = S(S(blk[i]) & s_mask)
-                        n0 = C(n0 + C(a > b0))
-                        n1 = C(n1 + C(a > b1))
-                        n2 = C(n2 + C(a > b2))
-                        n3 = C(n3 + C(a > b3))
-                else:
-                    k4 = live[g + 4]
-                    k5 = live[g + 5]
-                    k6 = live[g + 6]
-                    k7 = live[g + 7]
-                    b4 = below[k4]
-                    b5 = below[k5]
-                    b6 = below[k6]
-                    b7 = below[k7]
-                    n4 = C(0)
-                    n5 = C(0)
-                    n6 = C(0)
-                    n7 = C(0)
-                    for i in range(m):
-                        a = S(S(blk[i]) & s_mask)
-                        n0 = C(n0 + C(a > b0))
-                        n1 = C(n1 + C(a > b1))
-                        n2 = C(n2 + C(a > b2))
-                        n3 = C(n3 + C(a > b3))
-                        n4 = C(n4 + C(a > b4))
-                        n5 = C(n5 + C(a > b5))
-                        n6 = C(n6 + C(a > b6))
-                        n7 = C(n7 + C(a > b7))
-                    local[k4] = n4
-                    local[k5] = n5
-                    local[k6] = n6
-                    local[k7] = n7
-                local[k0] = n0
-                local[k1] = n1
-                local[k2] = n2
-                local[k3] = n3
-                g += width
+                    if k == slot0:
+                        source[k] = _FROM_SLOT0
+                    elif k == slot1:
+                        source[k] = _FROM_SLOT1
+                    else:
+                        source[k] = k
+                        live_w[nw] = k
+                        nw += 1
+                    if next0 < 0:
+                        next0 = k
+                    elif next1 < 0:
+                        next1 = k
+            count_keys(key[:m], K(-1), below_k, live_k, nk, local)
+            if nw:
+                count_wide(blk, s_mask, below_w, live_w, nw, local)
+            nonzero = local[kc]
+            big = local[kc + 1]
+            nan = local[kc + 2]
             for k in range(kc):
-                counts[k] += local[k]
+                src = source[k]
+                if src >= 0:
+                    counts[k] += local[src]
+                elif src == _FROM_NONZERO:
+                    counts[k] += nonzero
+                elif src == _FROM_BIG:
+                    counts[k] += big
+                elif src == _FROM_NAN:
+                    counts[k] += nan
+                elif src == _FROM_SLOT0:
+                    counts[k] += n0
+                elif src == _FROM_SLOT1:
+                    counts[k] += n1
+            slot0 = next0
+            slot1 = next1
             if want_exps:
                 i = 0
                 while i + 4 <= m:
@@ -364,9 +478,8 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             out[k] += counts[k]
         out[kc] += pos_inf
         ext[0] = p_max
-        ext[1] = p_min
-        ext[2] = n_max
-        ext[3] = n_min
+        ext[1] = n_max
+        ext[2] = min_mag
 
     @jit
     def first_in_range(bits, key_mask, lo, width, out):  # type: ignore[no-untyped-def]
