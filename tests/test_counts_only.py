@@ -53,7 +53,7 @@ def py_counts(bits: np.ndarray, f: dict, cuts: list[int]) -> dict:
     mags = [v & mask for v in pos + neg]
     return dict(
         at_least=[sum(1 for v in vals if v & mask >= c) for c in cuts],
-        pos_inf=sum(1 for v in vals if v == inf),
+        has_pos_inf=inf in vals, has_neg_inf=(inf | sign) in vals,
         pos_max=max(pos, default=None), neg_max=max(neg, default=None),
         min_magnitude=min(mags, default=None),
         exponents=np.bincount([(v & mask) >> f["t"] for v in vals], minlength=(inf >> f["t"]) + 1),
@@ -64,7 +64,7 @@ def check_counts(bits: np.ndarray, f: dict, cuts: list[int], compiled: bool) -> 
     got = pc.block_counts(bits, f["t"], np.array(cuts, f["dtype"]), True, compiled=compiled)
     want = py_counts(bits, f, cuts)
     assert [int(v) for v in got.at_least] == want["at_least"]
-    for k in ("pos_inf", "pos_max", "neg_max", "min_magnitude"):
+    for k in ("has_pos_inf", "has_neg_inf", "pos_max", "neg_max", "min_magnitude"):
         assert getattr(got, k) == want[k], k
     assert got.exponents is not None and np.array_equal(got.exponents, want["exponents"])
 
@@ -90,8 +90,9 @@ def test_block_counts_on_every_kind_of_pattern(f: dict, n: int, compiled: bool) 
 @pytest.mark.parametrize("f", [F32, F64], ids=["float32", "float64"])
 def test_block_counts_chunks_without_specials(f: dict) -> None:
     """Chunks of only zeros, only NaN, only -Inf, Inf and NaN without finite values, one sign,
-    or one binade: the kernel settles cuts from the chunk's range there, so each case is held
-    to the Python counts."""
+    or one binade, and the two signs of Inf in different chunks: the kernel settles cuts from
+    the chunk's range there and looks for the signs of Inf until it has seen both, so each
+    case is held to the Python counts."""
     inf, sign, t = f["inf"], f["sign"], f["t"]
     one = (inf >> 1) & ~((1 << t) - 1)
     cuts = sorted({1, 2, 1 << t, one, one + 5, inf - 1, inf, inf + 1, sign - 1})
@@ -102,7 +103,11 @@ def test_block_counts_chunks_without_specials(f: dict) -> None:
         np.tile(np.array([inf, inf + 5, 0, sign | inf, sign | (inf + 9)], f["dtype"]), 700),
         np.arange(one, one + 3000, dtype=f["dtype"]),
         np.arange(one, one + 3000, dtype=f["dtype"]) | f["dtype"](sign),
-        np.concatenate([np.zeros(2048, f["dtype"]), np.arange(one, one + 2048, dtype=f["dtype"])]),
+        np.concatenate([np.zeros(pc.CHUNK, f["dtype"]),
+                        np.arange(one, one + pc.CHUNK, dtype=f["dtype"])]),
+        # +Inf in the first chunk, -Inf only two chunks later
+        np.concatenate([np.full(pc.CHUNK, inf, f["dtype"]), np.arange(one, one + pc.CHUNK, dtype=f["dtype"]),
+                        np.full(5, sign | inf, f["dtype"])]),
     ]
     for bits in cases:
         check_counts(bits, f, cuts, True)

@@ -242,7 +242,7 @@ def _spec(fmts, mode="histogram", limit=5, keep=True):
 
 def _same(a, b) -> None:
     ia, ib = a.input, b.input
-    for field in ("n", "nan", "pos_inf", "neg_inf", "zero", "carrier_subnormal", "min", "max"):
+    for field in ("n", "nan", "inf", "zero", "carrier_subnormal", "min", "max"):
         assert getattr(ia, field) == getattr(ib, field), field
     assert np.array_equal(ia.exponents, ib.exponents)
     assert np.array_equal(ia.where_nan, ib.where_nan) and np.array_equal(ia.where_inf, ib.where_inf)

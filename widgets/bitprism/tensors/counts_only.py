@@ -127,7 +127,7 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
     totals = np.zeros(len(ranges), np.int64)
     found: list[list[np.ndarray]] = [[] for _ in ranges]
     need = [limit] * len(ranges)
-    n = pinf = zero = csub = 0
+    n = zero = csub = 0
     lo, hi = math.inf, -math.inf
     exps: np.ndarray | None = None
     for at, bits in _pieces(flat, spec):
@@ -150,10 +150,9 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
                 found[r].append(loc.to_global(pos + at))
                 need[r] -= pos.size
         piece_zero = k - int(g[ix[1]])
-        p_lo, p_hi = _extremes(bc, bc.pos_inf, counts[1] - bc.pos_inf, piece_zero, dt)
+        p_lo, p_hi = _extremes(bc, piece_zero, dt)
         lo, hi = min(lo, p_lo), max(hi, p_hi)
         n += k
-        pinf += bc.pos_inf
         zero += piece_zero
         csub += int(g[ix[1]] - g[ix[plan.p_sub]])
         if bc.exponents is not None:
@@ -169,7 +168,7 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
         return np.concatenate(found[r]) if found[r] else np.zeros(0, np.int64)
 
     t = [int(v) for v in totals]
-    inp = InputPartial(n, t[0], pinf, t[1] - pinf, zero, csub, lo, hi, exponents, where(0), where(1))
+    inp = InputPartial(n, t[0], t[1], zero, csub, lo, hi, exponents, where(0), where(1))
     fps = tuple(
         FormatPartial(
             t[2 + 3 * j], t[3 + 3 * j], t[4 + 3 * j],
@@ -182,13 +181,13 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
     return BlockPartial(limit, inp, fps)
 
 
-def _extremes(bc: BlockCounts, pinf: int, ninf: int, zero: int, dt: np.dtype) -> tuple[float, float]:
+def _extremes(bc: BlockCounts, zero: int, dt: np.dtype) -> tuple[float, float]:
     """(min, max) over the non-NaN values of the block (Inf included) from the extreme
     patterns; (Inf, -Inf) when there is none, as ``InputPartial`` expects. Without positive
     values or zero the largest value is minus the smallest magnitude (all are negative), and
     the other way round for the smallest value."""
     sign = 1 << (dt.itemsize * 8 - 1)
-    if pinf:
+    if bc.has_pos_inf:
         hi = math.inf
     elif bc.pos_max is not None:
         hi = _value(bc.pos_max, dt)
@@ -198,7 +197,7 @@ def _extremes(bc: BlockCounts, pinf: int, ninf: int, zero: int, dt: np.dtype) ->
         hi = _value(bc.min_magnitude | sign, dt)
     else:
         hi = -math.inf  # only -Inf (or nothing but NaN)
-    if ninf:
+    if bc.has_neg_inf:
         lo = -math.inf
     elif bc.neg_max is not None:
         lo = _value(bc.neg_max, dt)

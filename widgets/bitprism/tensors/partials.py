@@ -163,8 +163,7 @@ class InputPartial:
 
     n: int = 0
     nan: int = 0
-    pos_inf: int = 0
-    neg_inf: int = 0
+    inf: int = 0  # of either sign (min and max say which signs occur)
     zero: int = 0
     carrier_subnormal: int = 0
     min: float = math.inf  # over non-NaN values
@@ -177,8 +176,7 @@ class InputPartial:
         return InputPartial(
             self.n + o.n,
             self.nan + o.nan,
-            self.pos_inf + o.pos_inf,
-            self.neg_inf + o.neg_inf,
+            self.inf + o.inf,
             self.zero + o.zero,
             self.carrier_subnormal + o.carrier_subnormal,
             min(self.min, o.min),

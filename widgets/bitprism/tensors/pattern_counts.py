@@ -2,10 +2,10 @@
 
 A counts-only scan (``scan(..., quantiles=False)``) needs, per block of data, how many IEEE bit
 patterns lie at or above each of a few magnitude thresholds ("cuts": every class of a monotone
-cast is a range of ``|x|``), how many elements are exactly +Inf, the extreme finite values, and
+cast is a range of ``|x|``), whether +Inf and -Inf occur, the extreme finite values, and
 optionally the histogram of exponent fields. numpy needs one pass over memory per cut. The
 compiled kernel reads each cache-sized chunk from memory once, in a loop that takes the
-extreme finite values, counts +Inf and writes a half-width *key* per element; the cuts that lie
+extreme finite values and writes a half-width *key* per element; the cuts that lie
 outside the chunk's finite range are settled without a compare, and the others are counted
 from the chunk in cache, eight at a time: on the keys (16-bit lanes for float32 data) when the
 cut sits on a key step or one above it, which holds for zero, Inf, NaN, powers of two and the
@@ -43,7 +43,9 @@ class BlockCounts:
 
     ``at_least[k]``: elements whose magnitude pattern (sign bit cleared) is >= ``cuts[k]``
     (NaN patterns are the largest, so they count at every cut up to theirs).
-    ``pos_inf``: elements equal to +Inf. ``pos_max``: the largest pattern among positive
+    ``has_pos_inf`` / ``has_neg_inf``: whether +Inf / -Inf occur (how many Inf of either sign
+    is ``at_least`` of the cut +Inf less that of the cut just above). ``pos_max``: the largest
+    pattern among positive
     nonzero finite values, ``neg_max`` among negative ones (patterns with the sign bit set;
     the largest is the most negative value); ``min_magnitude``: the smallest magnitude pattern
     among nonzero finite values of either sign (the smallest value of a block with no
@@ -53,7 +55,8 @@ class BlockCounts:
     """
 
     at_least: np.ndarray
-    pos_inf: int
+    has_pos_inf: bool
+    has_neg_inf: bool
     pos_max: int | None
     neg_max: int | None
     min_magnitude: int | None
@@ -102,21 +105,22 @@ def block_counts(
     k = _kernels() if compiled else None
     if k is not None and bits.size:
         const = _constants(dtype, t)
-        out = np.zeros(cuts.size + 1, np.int64)
+        out = np.zeros(cuts.size + 2, np.int64)
         ext = np.array([_EXT_EMPTY_MAX, _EXT_EMPTY_MAX, const[5]], dtype)
         n_exp = int(const[1] >> dtype.type(t)) + 1
         exps = np.zeros((4, n_exp) if exponents else (4, 1), np.int64)
         k[dtype][0](bits, const, cuts, bool(exponents), out, ext, exps)
-        return _finish(out[:-1], int(out[-1]), ext, exps.sum(axis=0) if exponents else None)
+        return _finish(out[:-2], out[-2:], ext, exps.sum(axis=0) if exponents else None)
     return _numpy_counts(bits, t, cuts, exponents)
 
 
-def _finish(at_least: np.ndarray, pos_inf: int, ext: np.ndarray, exps: np.ndarray | None) -> BlockCounts:
+def _finish(at_least: np.ndarray, infs: np.ndarray, ext: np.ndarray, exps: np.ndarray | None) -> BlockCounts:
     empty_min = int(np.iinfo(ext.dtype).max)
     p_max, n_max, m_min = (int(v) for v in ext)
     return BlockCounts(
         at_least,
-        pos_inf,
+        bool(infs[0]),
+        bool(infs[1]),
         p_max if p_max != _EXT_EMPTY_MAX else None,
         n_max if n_max != _EXT_EMPTY_MAX else None,
         m_min if m_min != empty_min else None,
@@ -130,7 +134,6 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
     mask, inf, sign, inf_m1, one = (const[i] for i in range(5))
     a = np.bitwise_and(bits, mask)
     at_least = np.array([int(np.count_nonzero(a >= c)) for c in cuts], np.int64)
-    pos_inf = int(np.count_nonzero(bits == inf))
     pos = bits[(bits - one) < inf_m1]  # positive, nonzero, finite (0 wraps to the top)
     neg = bits[(bits - (sign + one)) < inf_m1]
     mags = a[(a - one) < inf_m1]
@@ -140,7 +143,8 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
         exps = np.bincount((a >> bits.dtype.type(t)).astype(np.intp), minlength=n_exp).astype(np.int64)
     return BlockCounts(
         at_least,
-        pos_inf,
+        bool(np.any(bits == inf)),
+        bool(np.any(bits == (inf | sign))),
         int(pos.max()) if pos.size else None,
         int(neg.max()) if neg.size else None,
         int(mags.min()) if mags.size else None,
@@ -290,16 +294,14 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
     count_wide = _group_counter(jit, S, masked=True)
 
     @jit
-    def first_pass(blk, key, s_mask, off_p, off_n, s_inf, w0, w1, with_wide):  # type: ignore[no-untyped-def]
+    def first_pass(blk, key, s_mask, off_p, off_n, w0, w1, with_wide):  # type: ignore[no-untyped-def]
         """One loop over the chunk: the extreme finite patterns per sign (through offsets
         that push every other pattern below the range), the smallest nonzero magnitude (an
-        unsigned minimum of a - 1: zero wraps to the top), the count of +Inf, the keys minus
-        one, and
+        unsigned minimum of a - 1: zero wraps to the top), the keys minus one, and
         with ``with_wide`` the counts above two full-width bounds."""
         mx_p = S(T(s_mask) + T(1))  # the lowest signed value
         mx_n = mx_p
         mn = T(-1)
-        c_inf = S(0)
         n0 = S(0)
         n1 = S(0)
         one = S(1)
@@ -311,7 +313,6 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                 mx_n = max(mx_n, S(v + off_n))
                 am1 = S(a - one)
                 mn = min(mn, T(am1))
-                c_inf = S(c_inf + S(v == s_inf))
                 n0 = S(n0 + S(a > w0))
                 n1 = S(n1 + S(a > w1))
                 key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
@@ -323,9 +324,8 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                 mx_n = max(mx_n, S(v + off_n))
                 am1 = S(a - one)
                 mn = min(mn, T(am1))
-                c_inf = S(c_inf + S(v == s_inf))
                 key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
-        return mx_p, mx_n, mn, c_inf, n0, n1
+        return mx_p, mx_n, mn, n0, n1
 
     @jit
     def count_chunks(bits, const, cuts, want_exps, out, ext, exps):  # type: ignore[no-untyped-def]
@@ -340,6 +340,7 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
         inf_p1 = T(inf + one)
         s_mask = S(mask)
         s_inf = S(inf)
+        s_ninf = S(T(inf | sign))
         # v + off_p keeps the order of positive finite patterns and sends everything else
         # below off_p (signed); v + off_n does the same for negative ones (sign flipped)
         off_p = S(T(sign - inf))
@@ -381,17 +382,15 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                     slot0 = k
                 elif slot1 < 0:
                     slot1 = k
-        pos_inf = 0
+        has_pos = out[kc] != 0
+        has_neg = out[kc + 1] != 0
         for s in range(0, n, CHUNK):
             e = min(n, s + CHUNK)
             blk = bits[s:e]
             m = e - s
             w0 = below_w[slot0] if slot0 >= 0 else s_mask  # a > s_mask: never
             w1 = below_w[slot1] if slot1 >= 0 else s_mask
-            mx_p, mx_n, mn, c_inf, n0, n1 = first_pass(
-                blk, key, s_mask, off_p, off_n, s_inf, w0, w1, slot0 >= 0
-            )
-            pos_inf += c_inf
+            mx_p, mx_n, mn, n0, n1 = first_pass(blk, key, s_mask, off_p, off_n, w0, w1, slot0 >= 0)
             # decoded: largest positive / negative finite nonzero pattern, smallest nonzero
             # finite magnitude
             cp_max = T(T(mx_p) - T(off_p)) if mx_p > off_p else zero
@@ -447,6 +446,16 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             nonzero = local[kc]
             big = local[kc + 1]
             nan = local[kc + 2]
+            if big > nan and not (has_pos and has_neg):
+                # which signs of Inf the chunk holds, until both have been seen
+                c_pos = S(0)
+                c_neg = S(0)
+                for i in range(m):
+                    v = S(blk[i])
+                    c_pos = S(c_pos + S(v == s_inf))
+                    c_neg = S(c_neg + S(v == s_ninf))
+                has_pos = has_pos or c_pos > 0
+                has_neg = has_neg or c_neg > 0
             for k in range(kc):
                 src = source[k]
                 if src >= 0:
@@ -476,7 +485,8 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                     i += 1
         for k in range(kc):
             out[k] += counts[k]
-        out[kc] += pos_inf
+        out[kc] = has_pos
+        out[kc + 1] = has_neg
         ext[0] = p_max
         ext[1] = n_max
         ext[2] = min_mag

@@ -496,7 +496,7 @@ def _scan_block(
     inf_bits = uint(((1 << (width - 1 - t_src)) - 1) << t_src)
     sign_bit = uint(1 << (width - 1))
     e_top = (1 << (width - 1 - t_src)) - 1
-    n = nan = pinf = ninf = zero = csub = 0
+    n = nan = infs = zero = csub = 0
     lo, hi = math.inf, -math.inf
     exps = np.zeros(e_top + 1, np.int64)
     w_nan: list[np.ndarray] = []
@@ -566,11 +566,8 @@ def _scan_block(
             z = int(np.count_nonzero(a == 0))
             nf = int(h[e_top])  # Inf and NaN
             sub_nan = int(np.count_nonzero(a > inf_bits)) if nf else 0
-            sub_pinf = int(np.count_nonzero(bits == inf_bits)) if nf > sub_nan else 0
-            sub_ninf = nf - sub_nan - sub_pinf
             nan += sub_nan
-            pinf += sub_pinf
-            ninf += sub_ninf
+            infs += nf - sub_nan
             zero += z
             csub += int(h[0]) - z
             h[0] = 0
@@ -924,7 +921,7 @@ def _scan_block(
     ex = np.arange(1, e_top) - bias + EXP_OFFSET
     exponents[ex] = exps[1:e_top]
     inp = InputPartial(
-        n, nan, pinf, ninf, zero, csub, lo, hi, exponents,
+        n, nan, infs, zero, csub, lo, hi, exponents,
         np.concatenate(w_nan) if w_nan else np.zeros(0, np.int64),
         np.concatenate(w_inf) if w_inf else np.zeros(0, np.int64),
     )
@@ -1644,7 +1641,7 @@ def _build(
         tuple(int(exps[i]) for i in populated),
         inp.zero,
         inp.carrier_subnormal + sub_extra,
-        inp.pos_inf + inp.neg_inf,
+        inp.inf,
         inp.nan,
         collected=spec.exponents,
     )
@@ -1680,7 +1677,7 @@ def _build(
                 entry.name,
                 inp.n,
                 inp.nan,
-                inp.pos_inf + inp.neg_inf,
+                inp.inf,
                 fp.overflow,
                 fp.underflow,
                 fp.subnormal if fp.subnormal >= 0 and plain else None,
