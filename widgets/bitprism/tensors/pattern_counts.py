@@ -294,13 +294,16 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
     count_wide = _group_counter(jit, S, masked=True)
 
     @jit
-    def first_pass(blk, key, s_mask, off_p, off_n, w0, w1, with_wide):  # type: ignore[no-untyped-def]
-        """One loop over the chunk: the extreme finite patterns per sign (through offsets
-        that push every other pattern below the range), the smallest nonzero magnitude (an
+    def first_pass(blk, key, s_mask, off_p, w0, w1, with_wide):  # type: ignore[no-untyped-def]
+        """One loop over the chunk: the extreme finite patterns per sign (through an offset
+        that pushes every other pattern below the range; the unsigned maximum of the same
+        sums is the signed one of the sums with the sign bit flipped, which is the negative
+        values' offset), the smallest nonzero magnitude (an
         unsigned minimum of a - 1: zero wraps to the top), the keys minus one, and
         with ``with_wide`` the counts above two full-width bounds."""
-        mx_p = S(T(s_mask) + T(1))  # the lowest signed value
-        mx_n = mx_p
+        lowest = T(T(s_mask) + T(1))  # the sign bit: the lowest signed value
+        mx_p = S(lowest)
+        mx_u = T(0)
         mn = T(-1)
         n0 = S(0)
         n1 = S(0)
@@ -309,8 +312,9 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             for i in range(blk.size):
                 v = S(blk[i])
                 a = S(v & s_mask)
-                mx_p = max(mx_p, S(v + off_p))
-                mx_n = max(mx_n, S(v + off_n))
+                u = S(v + off_p)
+                mx_p = max(mx_p, u)
+                mx_u = max(mx_u, T(u))
                 am1 = S(a - one)
                 mn = min(mn, T(am1))
                 n0 = S(n0 + S(a > w0))
@@ -320,12 +324,13 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             for i in range(blk.size):
                 v = S(blk[i])
                 a = S(v & s_mask)
-                mx_p = max(mx_p, S(v + off_p))
-                mx_n = max(mx_n, S(v + off_n))
+                u = S(v + off_p)
+                mx_p = max(mx_p, u)
+                mx_u = max(mx_u, T(u))
                 am1 = S(a - one)
                 mn = min(mn, T(am1))
                 key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
-        return mx_p, mx_n, mn, n0, n1
+        return mx_p, S(mx_u ^ lowest), mn, n0, n1
 
     @jit
     def count_chunks(bits, const, cuts, want_exps, out, ext, exps):  # type: ignore[no-untyped-def]
@@ -390,7 +395,7 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             m = e - s
             w0 = below_w[slot0] if slot0 >= 0 else s_mask  # a > s_mask: never
             w1 = below_w[slot1] if slot1 >= 0 else s_mask
-            mx_p, mx_n, mn, n0, n1 = first_pass(blk, key, s_mask, off_p, off_n, w0, w1, slot0 >= 0)
+            mx_p, mx_n, mn, n0, n1 = first_pass(blk, key, s_mask, off_p, w0, w1, slot0 >= 0)
             # decoded: largest positive / negative finite nonzero pattern, smallest nonzero
             # finite magnitude
             cp_max = T(T(mx_p) - T(off_p)) if mx_p > off_p else zero
