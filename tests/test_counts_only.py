@@ -200,10 +200,18 @@ def test_first_positions(compiled: bool) -> None:
     rng = np.random.default_rng(3)
     bits = rng.integers(0, 2**32, 10000, dtype=np.uint32)
     for lo, hi, magnitude, need in [(0x3F000000, 0x40000000, True, 5), (0x80000000, 0x90000000, False, 3),
-                                    (0x7F800001, 0x80000000, True, 4), (5, 5, True, 3), (0, 2**32, False, 0)]:
+                                    (0x7F800001, 0x80000000, True, 4), (5, 5, True, 3), (0, 2**32, False, 0),
+                                    (0x12345678, 0x12345678 + 2**21, True, 6)]:  # rare: a few chunks
         key = bits & np.uint32(0x7FFFFFFF) if magnitude else bits
         want = [i for i, v in enumerate(key.tolist()) if lo <= v < hi][:need]
+        if lo == 0x12345678:
+            assert len(want) >= 3 and want[-1] >= pc.CHUNK  # spread over chunks
         got = pc.first_positions(bits, lo, hi, magnitude, need, compiled=compiled)
+        assert got.tolist() == want
+        # the same through per-chunk counts (as the kernel gives them): only chunks with some
+        hit = ((key >= lo) & (key < hi)).astype(np.int64)
+        chunks = np.add.reduceat(hit, np.arange(0, bits.size, pc.CHUNK)) if hi > lo else hit[:0]
+        got = pc.first_positions(bits, lo, hi, magnitude, need, compiled=compiled, chunk_counts=chunks)
         assert got.tolist() == want
 
 
@@ -251,8 +259,21 @@ def late(dtype) -> np.ndarray:
     return narrow(x, dtype)
 
 
+def sparse() -> np.ndarray:
+    """300k ones with NaN, Inf, overflows and underflows of float8_e4m3fn a few thousand
+    elements apart: most of the kernel's chunks hold none, the others one or two, so the
+    positions come from many chunks."""
+    x = np.ones(300_000, np.float32)
+    x[::7001] = np.nan
+    x[3::9001] = 1000.0
+    x[5::11003] = -1e-9
+    x[7::13001] = -np.inf
+    return x
+
+
 CASES = [
     ("late specials, float16", lambda: late(np.float16), {}),
+    ("sparse specials", sparse, {}),
     ("late specials, float32", lambda: late(np.float32), {}),
     ("float32", lambda: wide(40000, 1), {}),
     ("float64", lambda: wide(40000, 2, np.float64), {}),

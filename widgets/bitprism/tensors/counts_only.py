@@ -5,8 +5,9 @@ of a cast is a range of ``|x|``: overflow is ``[overflow_from, Inf)``, underflow
 ``(0, nonzero_from)``, subnormal ``[nonzero_from, normal_from)``. Non-negative IEEE values are
 ordered like their bit patterns, so with G(p) = #(magnitude pattern >= p) each count is a
 difference of two G values, and the input's own classes (zero, subnormal, Inf, NaN) are too.
-``pattern_counts.block_counts`` gets every G of a block in one pass; positions ("where") come
-from an early-exit search that usually stops after a few elements.
+``pattern_counts.block_counts`` gets every G of a block in one pass, chunk by chunk; positions
+("where") come from an early-exit search of only the chunks whose counts say they hold some,
+so a single NaN at the end of a large tensor costs no extra pass.
 
 Used by ``scan._scan_block`` when the scan is counts-only, every format is a plain,
 sign-symmetric one and numba is installed; anything else takes the general path. Tests hold
@@ -146,7 +147,10 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
         totals += counts
         for r, c in enumerate(counts):
             if c and need[r] > 0:
-                pos = first_positions(bits, *ranges[r], True, min(need[r], c), compiled=compiled)
+                per_chunk = _range_chunks(bc, plan, *ranges[r])
+                pos = first_positions(
+                    bits, *ranges[r], True, min(need[r], c), compiled=compiled, chunk_counts=per_chunk
+                )
                 found[r].append(loc.to_global(pos + at))
                 need[r] -= pos.size
         piece_zero = k - int(g[ix[1]])
@@ -179,6 +183,16 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
         for j in range(len(plan.entries))
     )
     return BlockPartial(limit, inp, fps)
+
+
+def _range_chunks(bc: BlockCounts, plan: _Plan, lo: int, hi: int) -> np.ndarray | None:
+    """Per chunk of the kernel, how many magnitude patterns lie in [lo, hi) (both ends are
+    cuts of the plan, or ``hi`` is above every magnitude); ``None`` without the kernel."""
+    per = bc.chunk_at_least
+    if per is None:
+        return None
+    above = per[:, plan.index[hi]] if hi in plan.index else 0
+    return per[:, plan.index[lo]] - above
 
 
 def _extremes(bc: BlockCounts, zero: int, dt: np.dtype) -> tuple[float, float]:

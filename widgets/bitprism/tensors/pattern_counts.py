@@ -45,13 +45,15 @@ class BlockCounts:
     (NaN patterns are the largest, so they count at every cut up to theirs).
     ``has_pos_inf`` / ``has_neg_inf``: whether +Inf / -Inf occur (how many Inf of either sign
     is ``at_least`` of the cut +Inf less that of the cut just above). ``pos_max``: the largest
-    pattern among positive
-    nonzero finite values, ``neg_max`` among negative ones (patterns with the sign bit set;
-    the largest is the most negative value); ``min_magnitude``: the smallest magnitude pattern
-    among nonzero finite values of either sign (the smallest value of a block with no
-    negative values and no zero, or minus the largest of one with no positive values); each
-    ``None`` when the block has none. ``exponents``: elements per exponent field value
-    (``|pattern| >> t``), or ``None`` when not asked for.
+    pattern among positive nonzero finite values, ``neg_max`` among negative ones (patterns
+    with the sign bit set; the largest is the most negative value); ``min_magnitude``: the
+    smallest magnitude pattern among nonzero finite values of either sign (the smallest value
+    of a block with no negative values and no zero, or minus the largest of one with no
+    positive values); each ``None`` when the block has none. ``exponents``: elements per
+    exponent field value (``|pattern| >> t``), or ``None`` when not asked for.
+    ``chunk_at_least[j, k]``: the part of ``at_least[k]`` in elements ``j * CHUNK`` to
+    ``(j + 1) * CHUNK`` (compiled kernel only, else ``None``), so that a search for
+    positions visits only the chunks that hold some.
     """
 
     at_least: np.ndarray
@@ -61,6 +63,7 @@ class BlockCounts:
     neg_max: int | None
     min_magnitude: int | None
     exponents: np.ndarray | None
+    chunk_at_least: np.ndarray | None = None
 
 
 def compiled_available() -> bool:
@@ -109,12 +112,15 @@ def block_counts(
         ext = np.array([_EXT_EMPTY_MAX, _EXT_EMPTY_MAX, const[5]], dtype)
         n_exp = int(const[1] >> dtype.type(t)) + 1
         exps = np.zeros((4, n_exp) if exponents else (4, 1), np.int64)
-        k[dtype][0](bits, const, cuts, bool(exponents), out, ext, exps)
-        return _finish(out[:-2], out[-2:], ext, exps.sum(axis=0) if exponents else None)
+        per_chunk = np.empty((-(-bits.size // CHUNK), cuts.size), np.int32)
+        k[dtype][0](bits, const, cuts, bool(exponents), out, ext, exps, per_chunk)
+        return _finish(out[:-2], out[-2:], ext, exps.sum(axis=0) if exponents else None, per_chunk)
     return _numpy_counts(bits, t, cuts, exponents)
 
 
-def _finish(at_least: np.ndarray, infs: np.ndarray, ext: np.ndarray, exps: np.ndarray | None) -> BlockCounts:
+def _finish(
+    at_least: np.ndarray, infs: np.ndarray, ext: np.ndarray, exps: np.ndarray | None, per_chunk: np.ndarray
+) -> BlockCounts:
     empty_min = int(np.iinfo(ext.dtype).max)
     p_max, n_max, m_min = (int(v) for v in ext)
     return BlockCounts(
@@ -125,6 +131,7 @@ def _finish(at_least: np.ndarray, infs: np.ndarray, ext: np.ndarray, exps: np.nd
         n_max if n_max != _EXT_EMPTY_MAX else None,
         m_min if m_min != empty_min else None,
         exps,
+        per_chunk,
     )
 
 
@@ -153,12 +160,31 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
 
 
 def first_positions(
-    bits: np.ndarray, lo: int, hi: int, magnitude: bool, need: int, *, compiled: bool = True
+    bits: np.ndarray,
+    lo: int,
+    hi: int,
+    magnitude: bool,
+    need: int,
+    *,
+    compiled: bool = True,
+    chunk_counts: np.ndarray | None = None,
 ) -> np.ndarray:
     """Positions (ascending, at most ``need``) whose pattern — or magnitude pattern when
-    ``magnitude`` — lies in ``[lo, hi)``. Stops early with the compiled kernel."""
+    ``magnitude`` — lies in ``[lo, hi)``. Stops early with the compiled kernel.
+    ``chunk_counts``: how many there are in each ``CHUNK``-element chunk (from
+    ``BlockCounts.chunk_at_least``); then only the chunks holding some are read."""
     if need <= 0 or hi <= lo:
         return np.zeros(0, np.int64)
+    if chunk_counts is not None:
+        parts = []
+        for j in np.flatnonzero(chunk_counts):
+            at = int(j) * CHUNK
+            got = first_positions(bits[at : at + CHUNK], lo, hi, magnitude, need, compiled=compiled)
+            parts.append(got + at)
+            need -= got.size
+            if need <= 0:
+                break
+        return np.concatenate(parts) if parts else np.zeros(0, np.int64)
     dtype = bits.dtype
     k = _kernels() if compiled else None
     if k is not None:
@@ -333,7 +359,7 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
         return mx_p, S(mx_u ^ lowest), mn, n0, n1
 
     @jit
-    def count_chunks(bits, const, cuts, want_exps, out, ext, exps):  # type: ignore[no-untyped-def]
+    def count_chunks(bits, const, cuts, want_exps, out, ext, exps, per_chunk):  # type: ignore[no-untyped-def]
         mask = T(const[0])
         inf = T(const[1])
         sign = T(const[2])
@@ -461,20 +487,24 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                     c_neg = S(c_neg + S(v == s_ninf))
                 has_pos = has_pos or c_pos > 0
                 has_neg = has_neg or c_neg > 0
+            ci = s // CHUNK
             for k in range(kc):
                 src = source[k]
+                got = 0
                 if src >= 0:
-                    counts[k] += local[src]
+                    got = local[src]
                 elif src == _FROM_NONZERO:
-                    counts[k] += nonzero
+                    got = nonzero
                 elif src == _FROM_BIG:
-                    counts[k] += big
+                    got = big
                 elif src == _FROM_NAN:
-                    counts[k] += nan
+                    got = nan
                 elif src == _FROM_SLOT0:
-                    counts[k] += n0
+                    got = n0
                 elif src == _FROM_SLOT1:
-                    counts[k] += n1
+                    got = n1
+                counts[k] += got
+                per_chunk[ci, k] = got
             slot0 = next0
             slot1 = next1
             if want_exps:
@@ -498,14 +528,25 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
 
     @jit
     def first_in_range(bits, key_mask, lo, width, out):  # type: ignore[no-untyped-def]
+        """Chunk by chunk: a vector count of the matches, then (only where there are some)
+        an element-by-element search that stops at the last position wanted. A few matches
+        at the end of a large block cost one vector pass, not a scalar one."""
         need = out.size
         found = 0
-        for i in range(bits.size):
-            if T(T(bits[i] & key_mask) - lo) < width:
-                out[found] = i
-                found += 1
-                if found == need:
-                    break
+        n = bits.size
+        for s in range(0, n, CHUNK):
+            e = min(n, s + CHUNK)
+            hits = S(0)
+            for i in range(s, e):
+                hits = S(hits + S(T(T(bits[i] & key_mask) - lo) < width))
+            if hits == 0:
+                continue
+            for i in range(s, e):
+                if T(T(bits[i] & key_mask) - lo) < width:
+                    out[found] = i
+                    found += 1
+                    if found == need:
+                        return found
         return found
 
     return count_chunks, first_in_range
