@@ -201,18 +201,35 @@ def test_first_positions(compiled: bool) -> None:
     bits = rng.integers(0, 2**32, 10000, dtype=np.uint32)
     for lo, hi, magnitude, need in [(0x3F000000, 0x40000000, True, 5), (0x80000000, 0x90000000, False, 3),
                                     (0x7F800001, 0x80000000, True, 4), (5, 5, True, 3), (0, 2**32, False, 0),
-                                    (0x12345678, 0x12345678 + 2**21, True, 6)]:  # rare: a few chunks
+                                    (0x12345678, 0x12345678 + 2**21, True, 6)]:
         key = bits & np.uint32(0x7FFFFFFF) if magnitude else bits
         want = [i for i, v in enumerate(key.tolist()) if lo <= v < hi][:need]
-        if lo == 0x12345678:
-            assert len(want) >= 3 and want[-1] >= pc.CHUNK  # spread over chunks
         got = pc.first_positions(bits, lo, hi, magnitude, need, compiled=compiled)
         assert got.tolist() == want
-        # the same through per-chunk counts (as the kernel gives them): only chunks with some
-        hit = ((key >= lo) & (key < hi)).astype(np.int64)
-        chunks = np.add.reduceat(hit, np.arange(0, bits.size, pc.CHUNK)) if hi > lo else hit[:0]
-        got = pc.first_positions(bits, lo, hi, magnitude, need, compiled=compiled, chunk_counts=chunks)
-        assert got.tolist() == want
+
+
+@pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
+def test_range_positions(compiled: bool) -> None:
+    """Several magnitude ranges at once, reading only the chunks whose counts (as the kernel
+    keeps them) say they hold some: common ranges, rare ones spread over chunks, an empty one,
+    and one asked for nothing."""
+    if compiled and not pc.compiled_available():
+        pytest.skip("numba not installed")
+    rng = np.random.default_rng(4)
+    bits = rng.integers(0, 2**32, 3 * pc.CHUNK + 100, dtype=np.uint32)
+    key = bits & np.uint32(0x7FFFFFFF)
+    ranges = [(0x3F000000, 0x40000000), (0x12345678, 0x12345678 + 2**21), (0x7F800001, 0x80000000),
+              (5, 6), (0x20000000, 0x30000000)]
+    needs = [5, 6, 4, 3, 0]
+    starts = np.arange(0, bits.size, pc.CHUNK)
+    chunks = np.array([np.add.reduceat(((key >= lo) & (key < hi)).astype(np.int64), starts)
+                       for lo, hi in ranges])
+    got = pc.range_positions(bits, ranges, needs, chunks, compiled=compiled)
+    for (lo, hi), need, pos in zip(ranges, needs, got):
+        want = [i for i, v in enumerate(key.tolist()) if lo <= v < hi][:need]
+        assert pos.tolist() == want
+    rare = [i for i, v in enumerate(key.tolist()) if ranges[1][0] <= v < ranges[1][1]]
+    assert len(rare) >= 3 and rare[min(5, len(rare) - 1)] >= pc.CHUNK  # spread over chunks
 
 
 # ----- the counts-only scan against the general path and against the reference casts ---------

@@ -25,7 +25,7 @@ import numpy as np
 
 from ..formats import get_format
 from .partials import EXP_OFFSET, EXP_SLOTS, BlockPartial, FormatPartial, InputPartial
-from .pattern_counts import BlockCounts, block_counts, compiled_available, first_positions
+from .pattern_counts import BlockCounts, block_counts, compiled_available, range_positions
 
 if TYPE_CHECKING:
     from .scan import _Locator, _Spec
@@ -145,12 +145,14 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
             sb = int(g[ix[pz]] - g[ix[pn]]) if pz is not None and pn is not None and subs else 0
             counts += [ov, uf, sb]
         totals += counts
-        for r, c in enumerate(counts):
-            if c and need[r] > 0:
-                per_chunk = _range_chunks(bc, plan, *ranges[r])
-                pos = first_positions(
-                    bits, *ranges[r], True, min(need[r], c), compiled=compiled, chunk_counts=per_chunk
-                )
+        todo = [r for r, c in enumerate(counts) if c and need[r] > 0]
+        if todo:
+            wanted = [ranges[r] for r in todo]
+            got = range_positions(
+                bits, wanted, [min(need[r], counts[r]) for r in todo], _range_chunks(bc, plan, wanted),
+                compiled=compiled,
+            )
+            for r, pos in zip(todo, got):
                 found[r].append(loc.to_global(pos + at))
                 need[r] -= pos.size
         piece_zero = k - int(g[ix[1]])
@@ -185,14 +187,17 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
     return BlockPartial(limit, inp, fps)
 
 
-def _range_chunks(bc: BlockCounts, plan: _Plan, lo: int, hi: int) -> np.ndarray | None:
-    """Per chunk of the kernel, how many magnitude patterns lie in [lo, hi) (both ends are
-    cuts of the plan, or ``hi`` is above every magnitude); ``None`` without the kernel."""
+def _range_chunks(bc: BlockCounts, plan: _Plan, ranges: list[tuple[int, int]]) -> np.ndarray | None:
+    """[r, j]: how many magnitude patterns of chunk j of the kernel lie in ranges[r] = [lo, hi)
+    (both ends are cuts of the plan, or ``hi`` is above every magnitude); ``None`` without
+    the kernel."""
     per = bc.chunk_at_least
     if per is None:
         return None
-    above = per[:, plan.index[hi]] if hi in plan.index else 0
-    return per[:, plan.index[lo]] - above
+    low = per[:, [plan.index[lo] for lo, _ in ranges]]
+    top = [plan.index.get(hi, -1) for _, hi in ranges]
+    high = np.where(np.array(top) >= 0, per[:, top], 0)
+    return np.ascontiguousarray((low - high).T)
 
 
 def _extremes(bc: BlockCounts, zero: int, dt: np.dtype) -> tuple[float, float]:

@@ -26,7 +26,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-__all__ = ["BlockCounts", "block_counts", "compiled_available", "first_positions"]
+__all__ = ["BlockCounts", "block_counts", "compiled_available", "first_positions", "range_positions"]
 
 CHUNK = 4096  # elements per cache-resident chunk of the compiled kernel (counters fit int16)
 # key(a) = floor(a / 2^s) + ceil(a / 2^s) of a magnitude pattern fits the signed integer of
@@ -73,7 +73,7 @@ def compiled_available() -> bool:
 
 
 @lru_cache(maxsize=1)
-def _kernels() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any]]] | None:
+def _kernels() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]] | None:
     if os.environ.get("BITPRISM_NUMBA", "1").strip().lower() in ("0", "false", "no", "off"):
         return None
     try:
@@ -160,31 +160,12 @@ def _numpy_counts(bits: np.ndarray, t: int, cuts: np.ndarray, exponents: bool) -
 
 
 def first_positions(
-    bits: np.ndarray,
-    lo: int,
-    hi: int,
-    magnitude: bool,
-    need: int,
-    *,
-    compiled: bool = True,
-    chunk_counts: np.ndarray | None = None,
+    bits: np.ndarray, lo: int, hi: int, magnitude: bool, need: int, *, compiled: bool = True
 ) -> np.ndarray:
     """Positions (ascending, at most ``need``) whose pattern — or magnitude pattern when
-    ``magnitude`` — lies in ``[lo, hi)``. Stops early with the compiled kernel.
-    ``chunk_counts``: how many there are in each ``CHUNK``-element chunk (from
-    ``BlockCounts.chunk_at_least``); then only the chunks holding some are read."""
+    ``magnitude`` — lies in ``[lo, hi)``. Stops early with the compiled kernel."""
     if need <= 0 or hi <= lo:
         return np.zeros(0, np.int64)
-    if chunk_counts is not None:
-        parts = []
-        for j in np.flatnonzero(chunk_counts):
-            at = int(j) * CHUNK
-            got = first_positions(bits[at : at + CHUNK], lo, hi, magnitude, need, compiled=compiled)
-            parts.append(got + at)
-            need -= got.size
-            if need <= 0:
-                break
-        return np.concatenate(parts) if parts else np.zeros(0, np.int64)
     dtype = bits.dtype
     k = _kernels() if compiled else None
     if k is not None:
@@ -194,6 +175,33 @@ def first_positions(
         return out[:m].copy()
     key = np.bitwise_and(bits, dtype.type((1 << (dtype.itemsize * 8 - 1)) - 1)) if magnitude else bits
     return np.flatnonzero((key >= dtype.type(lo)) & (key < dtype.type(hi)))[:need].astype(np.int64)
+
+
+def range_positions(
+    bits: np.ndarray,
+    ranges: list[tuple[int, int]],
+    needs: list[int],
+    chunk_counts: np.ndarray | None,
+    *,
+    compiled: bool = True,
+) -> list[np.ndarray]:
+    """For each magnitude range ``[lo, hi)`` of ``ranges``, its first positions (ascending, at
+    most ``needs[r]``). ``chunk_counts[r, j]``: how many elements of range ``r`` lie in the
+    ``CHUNK``-element chunk ``j`` (from ``BlockCounts.chunk_at_least``): one compiled call
+    reads only the chunks holding some, so a few matches at the end of a large block cost
+    no pass over it. Without the kernel or the counts, ``first_positions`` range by range."""
+    k = _kernels() if compiled else None
+    if k is None or chunk_counts is None or not ranges:
+        return [first_positions(bits, lo, hi, True, need, compiled=compiled) for (lo, hi), need in zip(ranges, needs)]
+    dtype = bits.dtype
+    lows = np.array([lo for lo, _ in ranges], dtype)
+    widths = np.array([max(hi - lo, 0) for lo, hi in ranges], dtype)
+    want = np.array([max(need, 0) for need in needs], np.int64)
+    out = np.empty((len(ranges), max(int(want.max()), 1)), np.int64)
+    found = np.zeros(len(ranges), np.int64)
+    counts = np.ascontiguousarray(chunk_counts, np.int64)
+    k[dtype][2](bits, _constants(dtype, 0)[0], lows, widths, want, counts, out, found)
+    return [out[r, : found[r]].copy() for r in range(len(ranges))]
 
 
 def _probe(x: int) -> int:
@@ -216,7 +224,7 @@ def make_jit(**options: Any) -> Any:
     return jit
 
 
-def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any]]]:
+def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]]:
     """Build the numba kernels, one pair per pattern dtype."""
     jit = make_jit()
     return {np.dtype(t): _kernels_for(t, jit) for t in (np.uint32, np.uint64)}
@@ -293,7 +301,7 @@ def _group_counter(jit: Any, V: Any, masked: bool) -> Callable[..., Any]:
     return run
 
 
-def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
+def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]:
     """The kernels for patterns of numpy type ``T`` (unsigned).
 
     Each chunk is read from memory once, by a first loop on the patterns (``_first_pass``); the
@@ -549,4 +557,27 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                         return found
         return found
 
-    return count_chunks, first_in_range
+    @jit
+    def first_in_ranges(bits, key_mask, lows, widths, need, chunk_counts, out, found):  # type: ignore[no-untyped-def]
+        """Range by range, chunk by chunk where ``chunk_counts`` says there are matches: the
+        first ``need[r]`` positions of ``bits & key_mask`` in ``[lows[r], lows[r] + widths[r])``."""
+        n = bits.size
+        for r in range(lows.size):
+            got = 0
+            lo = lows[r]
+            width = widths[r]
+            want = need[r]
+            for j in range(chunk_counts.shape[1]):
+                if got == want:
+                    break
+                if chunk_counts[r, j] == 0:
+                    continue
+                for i in range(j * CHUNK, min(n, (j + 1) * CHUNK)):
+                    if T(T(bits[i] & key_mask) - lo) < width:
+                        out[r, got] = i
+                        got += 1
+                        if got == want:
+                            break
+            found[r] = got
+
+    return count_chunks, first_in_range, first_in_ranges
