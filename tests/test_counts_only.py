@@ -230,6 +230,9 @@ def test_range_positions(compiled: bool) -> None:
         assert pos.tolist() == want
     rare = [i for i, v in enumerate(key.tolist()) if ranges[1][0] <= v < ranges[1][1]]
     assert len(rare) >= 3 and rare[min(5, len(rare) - 1)] >= pc.CHUNK  # spread over chunks
+    if compiled:
+        with pytest.raises(ValueError, match="one column per chunk"):
+            pc.range_positions(bits, ranges, needs, chunks[:, :1])
 
 
 # ----- the counts-only scan against the general path and against the reference casts ---------

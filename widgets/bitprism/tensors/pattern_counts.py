@@ -192,7 +192,12 @@ def range_positions(
     no pass over it. Without the kernel or the counts, ``first_positions`` range by range."""
     k = _kernels() if compiled else None
     if k is None or chunk_counts is None or not ranges:
-        return [first_positions(bits, lo, hi, True, need, compiled=compiled) for (lo, hi), need in zip(ranges, needs)]
+        return [
+            first_positions(bits, lo, hi, True, need, compiled=compiled)
+            for (lo, hi), need in zip(ranges, needs)
+        ]
+    if chunk_counts.shape != (len(ranges), -(-bits.size // CHUNK)):
+        raise ValueError("chunk_counts must hold one row per range and one column per chunk")
     dtype = bits.dtype
     lows = np.array([lo for lo, _ in ranges], dtype)
     widths = np.array([max(hi - lo, 0) for lo, hi in ranges], dtype)
@@ -558,7 +563,9 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
         return found
 
     @jit
-    def first_in_ranges(bits, key_mask, lows, widths, need, chunk_counts, out, found):  # type: ignore[no-untyped-def]
+    def first_in_ranges(  # type: ignore[no-untyped-def]
+        bits, key_mask, lows, widths, need, chunk_counts, out, found
+    ):
         """Range by range, chunk by chunk where ``chunk_counts`` says there are matches: the
         first ``need[r]`` positions of ``bits & key_mask`` in ``[lows[r], lows[r] + widths[r])``."""
         n = bits.size
