@@ -218,7 +218,8 @@ def test_range_positions(compiled: bool) -> None:
     rng = np.random.default_rng(4)
     bits = rng.integers(0, 2**32, 3 * pc.CHUNK + 100, dtype=np.uint32)
     key = bits & np.uint32(0x7FFFFFFF)
-    ranges = [(0x3F000000, 0x40000000), (0x12345678, 0x12345678 + 2**21), (0x7F800001, 0x80000000),
+    rare = 8 * (2**31 // bits.size)  # about eight of the block's magnitudes in this width
+    ranges = [(0x3F000000, 0x40000000), (0x12345678, 0x12345678 + rare), (0x7F800001, 0x80000000),
               (5, 6), (0x20000000, 0x30000000)]
     needs = [5, 6, 4, 3, 0]
     starts = np.arange(0, bits.size, pc.CHUNK)
@@ -228,8 +229,8 @@ def test_range_positions(compiled: bool) -> None:
     for (lo, hi), need, pos in zip(ranges, needs, got):
         want = [i for i, v in enumerate(key.tolist()) if lo <= v < hi][:need]
         assert pos.tolist() == want
-    rare = [i for i, v in enumerate(key.tolist()) if ranges[1][0] <= v < ranges[1][1]]
-    assert len(rare) >= 3 and rare[min(5, len(rare) - 1)] >= pc.CHUNK  # spread over chunks
+    few = [i for i, v in enumerate(key.tolist()) if ranges[1][0] <= v < ranges[1][1]]
+    assert len(few) >= 3 and few[min(5, len(few) - 1)] >= pc.CHUNK  # spread over chunks
     if compiled:
         with pytest.raises(ValueError, match="one column per chunk"):
             pc.range_positions(bits, ranges, needs, chunks[:, :1])
