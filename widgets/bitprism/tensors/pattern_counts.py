@@ -12,9 +12,10 @@ cut sits on a key step or one above it, which holds for zero, Inf, NaN, powers o
 thresholds of formats with few significand bits, and on the full patterns otherwise (the
 thresholds of float16 and bfloat16, say). A cut costs about one compare and one subtraction
 per 16 elements on keys, per 8 on full float32 patterns, so the cost grows with the number of
-formats. ``numba`` is
-optional (the ``fast`` extra); without it, and with ``BITPRISM_NUMBA=0`` in the environment,
-the same numbers come from numpy. Tests hold the two equal on every kind of pattern.
+formats. The kernel keeps each chunk's counts too, so that ``range_positions`` finds the first
+elements of each class by reading only the chunks that hold some. ``numba`` is optional (the
+``fast`` extra); without it, and with ``BITPRISM_NUMBA=0`` in the environment, the same
+numbers come from numpy. Tests hold the two equal on every kind of pattern.
 """
 
 from __future__ import annotations
