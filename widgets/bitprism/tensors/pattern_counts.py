@@ -542,25 +542,14 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
 
     @jit
     def first_in_range(bits, key_mask, lo, width, out):  # type: ignore[no-untyped-def]
-        """Chunk by chunk: a vector count of the matches, then (only where there are some)
-        an element-by-element search that stops at the last position wanted. A few matches
-        at the end of a large block cost one vector pass, not a scalar one."""
         need = out.size
         found = 0
-        n = bits.size
-        for s in range(0, n, CHUNK):
-            e = min(n, s + CHUNK)
-            hits = S(0)
-            for i in range(s, e):
-                hits = S(hits + S(T(T(bits[i] & key_mask) - lo) < width))
-            if hits == 0:
-                continue
-            for i in range(s, e):
-                if T(T(bits[i] & key_mask) - lo) < width:
-                    out[found] = i
-                    found += 1
-                    if found == need:
-                        return found
+        for i in range(bits.size):
+            if T(T(bits[i] & key_mask) - lo) < width:
+                out[found] = i
+                found += 1
+                if found == need:
+                    break
         return found
 
     @jit
