@@ -231,9 +231,25 @@ def test_range_positions(compiled: bool) -> None:
         assert pos.tolist() == want
     few = [i for i, v in enumerate(key.tolist()) if ranges[1][0] <= v < ranges[1][1]]
     assert len(few) >= 3 and few[min(5, len(few) - 1)] >= pc.CHUNK  # spread over chunks
+    # the same from per-chunk counts at or above each bound, as BlockCounts.chunk_at_least
+    # holds them: column 2r for the low end of range r, 2r + 1 for its high end
+    at_least = np.array([np.add.reduceat((key >= b).astype(np.int64), starts)
+                         for lo, hi in ranges for b in (lo, hi)]).T
+    columns = [(2 * r, 2 * r + 1) for r in range(len(ranges))]
+    by_columns = pc.range_positions(bits, ranges, needs, at_least, columns=columns, compiled=compiled)
+    assert [p.tolist() for p in by_columns] == [p.tolist() for p in got]
+    top = [(2 * r, -1) for r in range(len(ranges))]  # no high end: up to every magnitude
+    opened = pc.range_positions(bits, [(lo, 2**31) for lo, _ in ranges], needs, at_least, columns=top,
+                                compiled=compiled)
+    for (lo, _), need, pos in zip(ranges, needs, opened):
+        assert pos.tolist() == [i for i, v in enumerate(key.tolist()) if v >= lo][:need]
     if compiled:
         with pytest.raises(ValueError, match="one column per chunk"):
             pc.range_positions(bits, ranges, needs, chunks[:, :1])
+        with pytest.raises(ValueError, match="one row per chunk"):
+            pc.range_positions(bits, ranges, needs, at_least[:1], columns=columns)
+        with pytest.raises(ValueError, match="columns must be in it"):
+            pc.range_positions(bits, ranges, needs, at_least, columns=[(0, 2 * len(ranges))] * len(ranges))
 
 
 # ----- the counts-only scan against the general path and against the reference casts ---------

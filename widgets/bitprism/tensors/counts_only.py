@@ -149,8 +149,8 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
         if todo:
             wanted = [ranges[r] for r in todo]
             got = range_positions(
-                bits, wanted, [min(need[r], counts[r]) for r in todo], _range_chunks(bc, plan, wanted),
-                compiled=compiled,
+                bits, wanted, [min(need[r], counts[r]) for r in todo], bc.chunk_at_least,
+                columns=[(ix[lo], ix.get(hi, -1)) for lo, hi in wanted], compiled=compiled,
             )
             for r, pos in zip(todo, got):
                 found[r].append(loc.to_global(pos + at))
@@ -185,19 +185,6 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
         for j in range(len(plan.entries))
     )
     return BlockPartial(limit, inp, fps)
-
-
-def _range_chunks(bc: BlockCounts, plan: _Plan, ranges: list[tuple[int, int]]) -> np.ndarray | None:
-    """[r, j]: how many magnitude patterns of chunk j of the kernel lie in ranges[r] = [lo, hi)
-    (both ends are cuts of the plan, or ``hi`` is above every magnitude); ``None`` without
-    the kernel."""
-    per = bc.chunk_at_least
-    if per is None:
-        return None
-    low = per[:, [plan.index[lo] for lo, _ in ranges]]
-    top = [plan.index.get(hi, -1) for _, hi in ranges]
-    high = np.where(np.array(top) >= 0, per[:, top], 0)
-    return np.ascontiguousarray((low - high).T)
 
 
 def _extremes(bc: BlockCounts, zero: int, dt: np.dtype) -> tuple[float, float]:

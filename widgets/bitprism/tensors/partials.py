@@ -99,6 +99,8 @@ class ExactSum:
         return ExactSum(num * ((1 << 1074) // den))
 
     def __add__(self, other: "ExactSum") -> "ExactSum":
+        if not other.units and other.special == 0.0:  # adding nothing (counts-only scans)
+            return self
         return ExactSum(self.units + other.units, self.special + other.special)
 
     def value(self) -> float:
@@ -133,28 +135,45 @@ def compress_values(parts: list[np.ndarray]) -> np.ndarray:
 
 
 def _first(a: np.ndarray, b: np.ndarray, limit: int) -> np.ndarray:
+    """The ``limit`` smallest indices of two ascending index lists."""
     if not b.size:
         return a
     if not a.size:
         return b
+    if a[-1] < b[0]:  # blocks merged in order: no sort needed
+        return a[:limit] if a.size >= limit else np.concatenate((a, b[: limit - a.size]))
     return np.sort(np.concatenate((a, b)))[:limit]
 
 
 def _top(
     av: np.ndarray, ai: np.ndarray, bv: np.ndarray, bi: np.ndarray, limit: int
 ) -> tuple[np.ndarray, np.ndarray]:
+    if not bv.size:  # each list is already in order and at most ``limit`` long
+        return av, ai
+    if not av.size:
+        return bv, bi
     v = np.concatenate((av, bv))
     i = np.concatenate((ai, bi))
     order = np.lexsort((i, -v))[:limit]  # error descending, then index ascending
     return v[order], i[order]
 
 
+def _read_only(a: np.ndarray) -> np.ndarray:
+    a.setflags(write=False)
+    return a
+
+
+# shared by every partial that has none (read-only, so no partial can change another's)
+_NO_INDICES = _read_only(np.zeros(0, np.int64))
+_NO_ERRORS = _read_only(np.zeros(0, np.float64))
+
+
 def _empty_i() -> np.ndarray:
-    return np.zeros(0, np.int64)
+    return _NO_INDICES
 
 
 def _empty_f() -> np.ndarray:
-    return np.zeros(0, np.float64)
+    return _NO_ERRORS
 
 
 @dataclass(frozen=True)
@@ -201,9 +220,9 @@ class FormatPartial:
     max_abs: float = 0.0
     max_rel: float = 0.0
     max_ulp: float = 0.0
-    sum_x2: ExactSum = field(default_factory=ExactSum)
-    sum_err2: ExactSum = field(default_factory=ExactSum)
-    sum_ulp: ExactSum = field(default_factory=ExactSum)
+    sum_x2: ExactSum = ExactSum()
+    sum_err2: ExactSum = ExactSum()
+    sum_ulp: ExactSum = ExactSum()
     rel_hist: np.ndarray | None = None
     rel_values: np.ndarray | None = None  # (2, m) values and counts: small inputs, second pass
     where_overflow: np.ndarray = field(default_factory=_empty_i)

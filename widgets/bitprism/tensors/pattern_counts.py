@@ -184,29 +184,47 @@ def range_positions(
     needs: list[int],
     chunk_counts: np.ndarray | None,
     *,
+    columns: list[tuple[int, int]] | None = None,
     compiled: bool = True,
 ) -> list[np.ndarray]:
     """For each magnitude range ``[lo, hi)`` of ``ranges``, its first positions (ascending, at
     most ``needs[r]``). ``chunk_counts[r, j]``: how many elements of range ``r`` lie in the
-    ``CHUNK``-element chunk ``j`` (from ``BlockCounts.chunk_at_least``): one compiled call
-    reads only the chunks holding some, so a few matches at the end of a large block cost
-    no pass over it. Without the kernel or the counts, ``first_positions`` range by range."""
+    ``CHUNK``-element chunk ``j``; or, with ``columns``, ``chunk_counts`` is a block's
+    ``BlockCounts.chunk_at_least`` and that count is ``chunk_counts[j, lo] - chunk_counts[j, hi]``
+    for ``(lo, hi) = columns[r]`` (``hi = -1``: nothing to subtract). One compiled call reads
+    only the chunks holding some, so a few matches at the end of a large block cost no pass
+    over it. Without the kernel or the counts, ``first_positions`` range by range."""
     k = _kernels() if compiled else None
     if k is None or chunk_counts is None or not ranges:
         return [
             first_positions(bits, lo, hi, True, need, compiled=compiled)
             for (lo, hi), need in zip(ranges, needs)
         ]
-    if chunk_counts.shape != (len(ranges), -(-bits.size // CHUNK)):
-        raise ValueError("chunk_counts must hold one row per range and one column per chunk")
+    n_chunks = -(-bits.size // CHUNK)
+    if columns is None:
+        if chunk_counts.shape != (len(ranges), n_chunks):
+            raise ValueError("chunk_counts must hold one row per range and one column per chunk")
+        per = np.ascontiguousarray(chunk_counts.T, np.int32)
+        lo_col = np.arange(len(ranges), dtype=np.int64)
+        hi_col = np.full(len(ranges), -1, np.int64)
+    else:
+        cols = np.array(columns, np.int64).reshape(-1, 2)
+        if (
+            chunk_counts.ndim != 2
+            or chunk_counts.shape[0] != n_chunks
+            or cols.shape[0] != len(ranges)
+            or cols.size and (cols.min() < -1 or cols.max() >= chunk_counts.shape[1] or cols[:, 0].min() < 0)
+        ):
+            raise ValueError("chunk_counts must hold one row per chunk and the columns must be in it")
+        per = np.ascontiguousarray(chunk_counts, np.int32)
+        lo_col, hi_col = np.ascontiguousarray(cols[:, 0]), np.ascontiguousarray(cols[:, 1])
     dtype = bits.dtype
     lows = np.array([lo for lo, _ in ranges], dtype)
     widths = np.array([max(hi - lo, 0) for lo, hi in ranges], dtype)
     want = np.array([max(need, 0) for need in needs], np.int64)
     out = np.empty((len(ranges), max(int(want.max()), 1)), np.int64)
     found = np.zeros(len(ranges), np.int64)
-    counts = np.ascontiguousarray(chunk_counts, np.int64)
-    k[dtype][2](bits, _constants(dtype, 0)[0], lows, widths, want, counts, out, found)
+    k[dtype][2](bits, _constants(dtype, 0)[0], lows, widths, want, per, lo_col, hi_col, out, found)
     return [out[r, : found[r]].copy() for r in range(len(ranges))]
 
 
@@ -554,20 +572,23 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
 
     @jit
     def first_in_ranges(  # type: ignore[no-untyped-def]
-        bits, key_mask, lows, widths, need, chunk_counts, out, found
+        bits, key_mask, lows, widths, need, per, lo_col, hi_col, out, found
     ):
-        """Range by range, chunk by chunk where ``chunk_counts`` says there are matches: the
-        first ``need[r]`` positions of ``bits & key_mask`` in ``[lows[r], lows[r] + widths[r])``."""
+        """Range by range, chunk by chunk where the counts say there are matches
+        (``per[j, lo_col[r]] - per[j, hi_col[r]]``, the second term 0 when ``hi_col[r] < 0``):
+        the first ``need[r]`` positions of ``bits & key_mask`` in ``[lows[r], lows[r] + widths[r])``."""
         n = bits.size
         for r in range(lows.size):
             got = 0
             lo = lows[r]
             width = widths[r]
             want = need[r]
-            for j in range(chunk_counts.shape[1]):
+            c_lo = lo_col[r]
+            c_hi = hi_col[r]
+            for j in range(per.shape[0]):
                 if got == want:
                     break
-                if chunk_counts[r, j] == 0:
+                if per[j, c_lo] == (per[j, c_hi] if c_hi >= 0 else 0):
                     continue
                 for i in range(j * CHUNK, min(n, (j + 1) * CHUNK)):
                     if T(T(bits[i] & key_mask) - lo) < width:

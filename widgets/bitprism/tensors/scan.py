@@ -1160,7 +1160,9 @@ class ScanResult:
 
 
 def _resolve_entries(formats: Any, options: CastOptions) -> tuple[_Entry, ...]:
-    if isinstance(formats, (str, Format)) or isinstance(formats, ScanQuantizer):
+    if isinstance(formats, (str, Format)) or (
+        not isinstance(formats, (tuple, list)) and isinstance(formats, ScanQuantizer)  # slow check last
+    ):
         formats = (formats,)
     entries: list[_Entry] = []
     for spec in formats:
@@ -1191,6 +1193,7 @@ def _resolve_entries(formats: Any, options: CastOptions) -> tuple[_Entry, ...]:
     return tuple(entries)
 
 
+@lru_cache(maxsize=1)
 def _mx_names() -> frozenset[str]:
     from .mx import MX_FORMATS
 
@@ -1653,6 +1656,8 @@ def _build(
     nd_shape = shape if shape else (1,)
 
     def unravel(flat: np.ndarray) -> tuple[np.ndarray, ...]:
+        if len(nd_shape) == 1:
+            return (np.array(flat, np.intp),)
         flat = np.asarray(flat, np.int64)
         return tuple(np.asarray(i, np.intp) for i in np.unravel_index(flat, nd_shape))
 
