@@ -8,7 +8,9 @@ and six formats in one run:
 * exact-quantile scan / baseline           (target <= 0.5x)
 * histogram-quantile scan / baseline       (target <= 0.25x)
 * counts-only scan / one streaming x.max() (target <= 3x), on the default threads; also, for
-  information, on one thread, with the exponent histogram, and without numba (general path)
+  information, on one thread, with the exponent histogram, and without numba (general path);
+  with numba and two cores, both halves of the data at once on two threads against one half
+  alone (how far the cores run side by side, which decides what the second thread gains)
 * peak extra memory of the scan / input size (target <= 1.5x), by tracemalloc
 * with --memmap: a 2 GiB .npy memmapped from a temporary folder, counts-only and histogram
   scans, peak extra memory (target < 512 MiB) — writes 2 GiB, so it is optional.
@@ -26,6 +28,7 @@ import argparse
 import os
 import sys
 import tempfile
+import threading
 import time
 import tracemalloc
 from pathlib import Path
@@ -129,6 +132,24 @@ def counts_variant(run, variant: str) -> float:
         return min(timed(lambda: run(quantiles=False, exponents=exps)) for _ in range(3))
 
 
+def halves_side_by_side(x: np.ndarray) -> tuple[float, float]:
+    """(one half of ``x`` scanned counts-only on one thread, both halves at once on two
+    threads): how far the machine's cores run side by side for this vector-bound work, which
+    decides what a second thread gains (on some virtual machines two cores share vector units
+    at times)."""
+    halves = (x[: x.size // 2], x[x.size // 2 :])
+    one = lambda part: scan(part, FORMATS, progress=False, quantiles=False)  # noqa: E731
+
+    def pair() -> None:
+        worker = threading.Thread(target=one, args=(halves[1],))
+        worker.start()
+        one(halves[0])
+        worker.join()
+
+    with patched(scan_module, MAX_THREADS=1):
+        return min(timed(lambda: one(halves[0])) for _ in range(3)), min(timed(pair) for _ in range(3))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--n", type=int, default=1 << 24)
@@ -141,7 +162,8 @@ def main() -> None:
     run = lambda **kw: scan(x, FORMATS, progress=False, **kw)  # noqa: E731
 
     variants = ("counts", "one thread", "exponents", "numpy")
-    runs: dict[str, list[float]] = {k: [] for k in ("base", "exact", "hist", "max") + variants}
+    runs: dict[str, list[float]] = {k: [] for k in ("base", "exact", "hist", "max", "half", "pair") + variants}
+    sides = pattern_counts.compiled_available() and scan_module._threads() >= 2
     run(quantiles=False)  # compile the counting kernel (numba caches it on disk) before timing
     for _ in range(args.repeat):  # interleaved rounds: each ratio is taken within one round
         runs["base"].append(timed(lambda: baseline(x)))
@@ -150,6 +172,10 @@ def main() -> None:
         for v in variants:
             runs[v].append(counts_variant(run, v))
         runs["max"].append(min(timed(lambda: x.max()) for _ in range(5)))
+        if sides:
+            half, pair = halves_side_by_side(x)
+            runs["half"].append(half)
+            runs["pair"].append(pair)
 
     def ratio(a: str, b: str) -> float:
         return float(np.median([p / q for p, q in zip(runs[a], runs[b])]))
@@ -175,6 +201,9 @@ def main() -> None:
         else:
             verdict = f"target <= {target:g}: {'meets' if r <= target else 'misses'}"
         print(f"  {label:27s} {min(runs[a]):8.4f} s  = {r:6.2f}x {versus:8s} ({verdict})")
+    if sides:
+        print(f"  both halves at once on two threads took {ratio('pair', 'half'):.2f}x one half alone "
+              "(1.00: the cores ran side by side; 2.00: they shared their vector units)")
 
     # agreement with the baseline (counts and exact quantiles)
     print("agreement with the baseline (exact quantiles must be equal, not close):")
