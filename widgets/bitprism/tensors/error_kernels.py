@@ -23,7 +23,7 @@ from typing import Any, Callable
 import numpy as np
 
 from .partials import REL_BASE, REL_BINS, REL_SHIFT
-from .pattern_counts import compiled_available, make_jit
+from .pattern_counts import compiled_available, make_jit, with_kernels
 from .sub_ranges import LOG_BITS
 
 __all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes", "range_counts", "range_values"]
@@ -104,6 +104,12 @@ def range_counts(rel: np.ndarray, lo: int, hi: int, shift: int, bins: int, log_b
     _kernels()[4](rel.view(np.uint64), np.uint64(lo), np.uint64(hi), np.uint64(shift), bins, log_bins, hist)
 
 
+# the compiled kernels that ``measure`` calls, bound by ``with_kernels`` where they are made
+_gather: Callable[..., Any]
+_settle: Callable[..., Any]
+_maxima: Callable[..., Any]
+
+
 @lru_cache(maxsize=1)
 def _kernels() -> tuple[Callable[..., Any], ...]:
     jit = make_jit()
@@ -158,11 +164,12 @@ def _kernels() -> tuple[Callable[..., Any], ...]:
             u_max = max(u_max, ue[i])
         return e_max, r_max, u_max
 
-    @jit
     def measure(codes, x, den, values, inv_ulp, imask, ishift, mmask, sub_top, err, rel, ue, bad):  # type: ignore[no-untyped-def]
-        n_mag0, n_code0, n_sub = gather(codes, x, values, inv_ulp, imask, ishift, mmask, sub_top, err, ue)
-        n_bad, n_exact = settle(err, den, rel, ue, bad)
-        return (n_bad, n_exact, n_mag0, n_code0, n_sub), maxima(err, rel, ue)
+        n_mag0, n_code0, n_sub = _gather(codes, x, values, inv_ulp, imask, ishift, mmask, sub_top, err, ue)
+        n_bad, n_exact = _settle(err, den, rel, ue, bad)
+        return (n_bad, n_exact, n_mag0, n_code0, n_sub), _maxima(err, rel, ue)
+
+    measure = jit(with_kernels(measure, _gather=gather, _settle=settle, _maxima=maxima))
 
     @jit
     def buckets(bits, hist):  # type: ignore[no-untyped-def]

@@ -21,6 +21,7 @@ numbers come from numpy. Tests hold the two equal on every kind of pattern.
 from __future__ import annotations
 
 import os
+import types
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any, Callable
@@ -248,6 +249,27 @@ def make_jit(**options: Any) -> Any:
     return jit
 
 
+def with_kernels(fn: Callable[..., Any], **kernels: Callable[..., Any]) -> Callable[..., Any]:
+    """``fn`` (before ``jit``) with ``kernels`` among its global names. A kernel must reach the
+    compiled kernels it calls there, not in a closure: numba's on-disk cache key hashes the
+    closure's values, and a compiled kernel pickles with an id drawn afresh in every process,
+    so a closure over one missed the cache in every process (seconds of compiling, and one
+    more cache file each time)."""
+    names = dict(fn.__globals__)
+    names.update(kernels)
+    out = types.FunctionType(fn.__code__, names, fn.__name__, fn.__defaults__, fn.__closure__)
+    out.__qualname__ = fn.__qualname__
+    out.__module__ = fn.__module__
+    out.__doc__ = fn.__doc__
+    return out
+
+
+# the compiled kernels that other kernels call, bound by ``with_kernels`` where they are made
+_first_pass: Callable[..., Any]
+_count_keys: Callable[..., Any]
+_count_wide: Callable[..., Any]
+
+
 def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]]:
     """Build the numba kernels, one pair per pattern dtype."""
     jit = make_jit()
@@ -348,8 +370,6 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
     key_low = T((1 << shift) - 1)
     key_shift = T(shift)
     s_shift = S(shift)
-    count_keys = _group_counter(jit, K, masked=False)
-    count_wide = _group_counter(jit, S, masked=True)
 
     @jit
     def first_pass(blk, key, s_mask, off_p, w0, w1, with_wide):  # type: ignore[no-untyped-def]
@@ -390,7 +410,6 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                 key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
         return mx_p, S(mx_u ^ lowest), mn, n0, n1
 
-    @jit
     def count_chunks(bits, const, cuts, want_exps, out, ext, exps, per_chunk):  # type: ignore[no-untyped-def]
         mask = T(const[0])
         inf = T(const[1])
@@ -453,7 +472,7 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
             m = e - s
             w0 = below_w[slot0] if slot0 >= 0 else s_mask  # a > s_mask: never
             w1 = below_w[slot1] if slot1 >= 0 else s_mask
-            mx_p, mx_n, mn, n0, n1 = first_pass(blk, key, s_mask, off_p, w0, w1, slot0 >= 0)
+            mx_p, mx_n, mn, n0, n1 = _first_pass(blk, key, s_mask, off_p, w0, w1, slot0 >= 0)
             # decoded: largest positive / negative finite nonzero pattern, smallest nonzero
             # finite magnitude
             cp_max = T(T(mx_p) - T(off_p)) if mx_p > off_p else zero
@@ -503,9 +522,9 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                         next0 = k
                     elif next1 < 0:
                         next1 = k
-            count_keys(key[:m], K(-1), below_k, live_k, nk, local)
+            _count_keys(key[:m], K(-1), below_k, live_k, nk, local)
             if nw:
-                count_wide(blk, s_mask, below_w, live_w, nw, local)
+                _count_wide(blk, s_mask, below_w, live_w, nw, local)
             nonzero = local[kc]
             big = local[kc + 1]
             nan = local[kc + 2]
@@ -557,6 +576,11 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
         ext[0] = p_max
         ext[1] = n_max
         ext[2] = min_mag
+
+    count_chunks = jit(with_kernels(
+        count_chunks, _first_pass=first_pass, _count_keys=_group_counter(jit, K, masked=False),
+        _count_wide=_group_counter(jit, S, masked=True),
+    ))
 
     @jit
     def first_in_range(bits, key_mask, lo, width, out):  # type: ignore[no-untyped-def]
