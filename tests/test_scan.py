@@ -623,6 +623,19 @@ def test_progress_bar_on_large_input(monkeypatch: pytest.MonkeyPatch, capsys) ->
     assert "scan" in capsys.readouterr().err
 
 
+def test_progress_bar_counts_each_pass(monkeypatch: pytest.MonkeyPatch, capsys) -> None:
+    # exact quantiles of more than KEEP_VALUES elements take a second pass: the bar names it and
+    # counts the tensor's 1000 elements again instead of showing a total of twice the tensor
+    monkeypatch.setattr(scan_mod, "PROGRESS_MIN", 100)
+    monkeypatch.setattr(scan_mod, "BLOCK", 256)
+    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 10)
+    x = np.random.default_rng(0).standard_normal(1000).astype(np.float32)
+    scan(x, ["float16"], progress=True, quantiles="exact")
+    err = capsys.readouterr().err
+    assert "scan, pass 1" in err and "scan, pass 2" in err
+    assert "/1.00k" in err and "/2.00k" not in err
+
+
 def test_importing_scan_loads_no_plotting_or_dask() -> None:
     code = (
         "import sys, bitprism.tensors.scan, bitprism.plots;"

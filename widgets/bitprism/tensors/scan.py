@@ -1252,12 +1252,14 @@ def _numpy_blocks(
         yield rows, _Locator(r * row), last if spec.hooks else _SUB
 
 
-def _progress_bar(total: int, enabled: bool, desc: str) -> Any:
-    if not enabled or total <= PROGRESS_MIN:
+def _progress_bar(size: int, work: int, enabled: bool, desc: str) -> Any:
+    """A bar over the ``size`` elements of one pass, shown when the whole scan reads more
+    than ``PROGRESS_MIN`` elements (``work``, over all passes)."""
+    if not enabled or work <= PROGRESS_MIN:
         return None
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, unit="el", unit_scale=True, desc=desc, leave=False)
+    return tqdm(total=size, unit="el", unit_scale=True, desc=desc, leave=False)
 
 
 def _threads() -> int:
@@ -1485,18 +1487,24 @@ def scan(
     spec = _Spec(entries, options, scale, quantiles, where_limit, keep, carrier32, seed,
                  exponents=exponents)
     passes = 2 if quantiles == "exact" and not keep else 1
-    bar = None if dask_input else _progress_bar(size * passes, progress, "scan")
+    # exact quantiles may need more passes than the two foreseen: the bar counts the elements
+    # of the current pass (so its total is the tensor's size) and names the pass
+    bar = None if dask_input else _progress_bar(size, size * passes, progress,
+                                                "scan, pass 1" if passes == 2 else "scan")
     try:
         part = _run_dask(arr, spec) if dask_input else _run_numpy(arr, spec, bar)
         fparts = list(part.formats) if part is not None else []
         resolved: list[dict[int, float]] = [{} for _ in fparts]
         if part is not None and passes == 2:
             pending = _first_requests(fparts)
+            pass_number = 1
             while pending:
                 targets, index = _targets_for(pending, len(fparts))
                 spec2 = _Spec(entries, options, scale, quantiles, where_limit, False, carrier32, seed, targets)
-                if bar is not None and bar.n >= bar.total:
-                    bar.total += size
+                pass_number += 1
+                if bar is not None:
+                    bar.set_description(f"scan, pass {pass_number}", refresh=False)
+                    bar.reset(total=size)
                 more = _run_dask(arr, spec2) if dask_input else _run_numpy(arr, spec2, bar)
                 assert more is not None
                 pending = _refine(pending, index, targets, more, resolved)
