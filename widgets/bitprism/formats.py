@@ -14,9 +14,9 @@ from fractions import Fraction
 from functools import cached_property
 from typing import Any, Literal, Mapping, Union
 
-import ml_dtypes
 import numpy as np
 
+from . import ml_types
 from .errors import BitprismError
 
 __all__ = [
@@ -309,11 +309,24 @@ class Format:
         """The numpy / ml_dtypes dtype with this layout, or None (tf32, custom formats)."""
         if self.dtype_name is None:
             return None
-        if hasattr(np, self.dtype_name) and self.dtype_name.startswith("float"):
-            base = getattr(np, self.dtype_name)
-            if np.dtype(base).itemsize * 8 == self.bits:
-                return np.dtype(base)
-        return np.dtype(getattr(ml_dtypes, self.dtype_name))
+        return self._numpy_dtype or np.dtype(getattr(ml_types.module(), self.dtype_name))
+
+    @cached_property
+    def _numpy_dtype(self) -> np.dtype | None:
+        """numpy's own dtype with this layout (float16, float32, float64), else None."""
+        name = self.dtype_name
+        if name is not None and name.startswith("float") and hasattr(np, name):
+            base = np.dtype(getattr(np, name))
+            if base.itemsize * 8 == self.bits:
+                return base
+        return None
+
+    def is_dtype(self, dt: np.dtype) -> bool:
+        """Whether ``dt`` is this format's numpy / ml_dtypes dtype; imports ml_dtypes only when
+        something else has (before that, no dtype is one of its types)."""
+        if self._numpy_dtype is not None:
+            return dt == self._numpy_dtype
+        return self.dtype_name is not None and ml_types.loaded() and dt == self.dtype
 
     @property
     def layout(self) -> str:
@@ -448,7 +461,7 @@ def _by_dtype(spec: Any) -> Format | None:
     except TypeError:
         return None
     for fmt in _BUILTINS:
-        if fmt.dtype is not None and fmt.dtype == dt:
+        if fmt.is_dtype(dt):
             return fmt
     return None
 

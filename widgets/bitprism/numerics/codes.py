@@ -125,7 +125,7 @@ def _encode_array(
     if options.rounding == "stochastic" and rng is None:
         rng = np.random.default_rng(options.seed)
     unchanged = options.overflow == "standard" and options.subnormals == "keep"
-    if fmt.dtype is not None and arr.dtype == fmt.dtype and unchanged:
+    if unchanged and fmt.is_dtype(arr.dtype):
         np.copyto(flat_out, flat_in.view(fmt.code_dtype))
         return out  # already in this format: the codes are the bits
     if table_eligible(fmt, carrier, options):

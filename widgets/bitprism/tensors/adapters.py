@@ -18,9 +18,9 @@ from collections.abc import Mapping
 from functools import lru_cache
 from typing import Any
 
-import ml_dtypes
 import numpy as np
 
+from .. import ml_types
 from ..errors import BitprismError, UnsupportedInputError
 from .files import open_tensor
 
@@ -83,31 +83,34 @@ _TORCH_PLAIN = frozenset(
 
 @lru_cache(maxsize=None)
 def _ml_float_dtypes() -> frozenset[np.dtype]:
+    ml = ml_types.module()
     return frozenset(
-        np.dtype(getattr(ml_dtypes, n)) for n in _ML_FLOAT_NAMES if hasattr(ml_dtypes, n)
+        np.dtype(getattr(ml, n)) for n in _ML_FLOAT_NAMES if hasattr(ml, n)
     )
 
 
 @lru_cache(maxsize=None)
 def _ml_int_dtypes() -> dict[np.dtype, np.dtype]:
+    ml = ml_types.module()
     return {
-        np.dtype(getattr(ml_dtypes, n)): np.dtype(wide)
+        np.dtype(getattr(ml, n)): np.dtype(wide)
         for n, wide in _ML_INT_NAMES.items()
-        if hasattr(ml_dtypes, n)
+        if hasattr(ml, n)
     }
 
 
 @lru_cache(maxsize=None)
 def _ml_complex_dtypes() -> frozenset[np.dtype]:
+    ml = ml_types.module()
     return frozenset(
-        np.dtype(getattr(ml_dtypes, n)) for n in _ML_COMPLEX_NAMES if hasattr(ml_dtypes, n)
+        np.dtype(getattr(ml, n)) for n in _ML_COMPLEX_NAMES if hasattr(ml, n)
     )
 
 
 def _ml_dtype(name: str) -> np.dtype:
     if hasattr(np, name) and name.startswith("float") and np.dtype(name).kind == "f":
         return np.dtype(name)
-    return np.dtype(getattr(ml_dtypes, name))
+    return np.dtype(getattr(ml_types.module(), name))
 
 
 def _type_name(obj: Any) -> str:
@@ -263,7 +266,8 @@ def _from_numpy(arr: np.ndarray, what: str | None = None) -> np.ndarray:
     """Validate a numpy array's dtype and return it (as is whenever its bits can be read as is)."""
     dtype = arr.dtype
     source = f"{what}: " if what else ""
-    if dtype in _ml_float_dtypes():
+    ml_loaded = ml_types.loaded()  # before ml_dtypes is imported, no dtype is one of its types
+    if ml_loaded and dtype in _ml_float_dtypes():
         return _native(arr)
     if dtype.kind == "f":
         if dtype.itemsize > 8:
@@ -279,10 +283,10 @@ def _from_numpy(arr: np.ndarray, what: str | None = None) -> np.ndarray:
         arr = _native(arr)
         _check_exact_integers(arr, source)
         return arr
-    if dtype in _ml_int_dtypes():
+    if ml_loaded and dtype in _ml_int_dtypes():
         # int4/int2/... hold one value per byte; widening to int8/uint8 is exact.
         return arr.astype(_ml_int_dtypes()[dtype])
-    if dtype.kind == "c" or dtype in _ml_complex_dtypes():
+    if dtype.kind == "c" or ml_loaded and dtype in _ml_complex_dtypes():
         raise UnsupportedInputError(
             f"{source}got complex data ({_describe(dtype)}); bitprism inspects real values: "
             f"pass arr.real and arr.imag separately. {_ACCEPTED}"

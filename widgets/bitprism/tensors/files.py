@@ -34,9 +34,9 @@ import zipfile
 from collections.abc import Iterator, Mapping
 from typing import Any, Callable, Union
 
-import ml_dtypes
 import numpy as np
 
+from .. import ml_types
 from ..errors import BitprismError, UnsupportedInputError
 from ..formats import get_format
 
@@ -61,12 +61,12 @@ _SAFETENSORS_DTYPES: dict[str, Callable[[], np.dtype]] = {
     "F64": lambda: np.dtype("<f8"),
     "F32": lambda: np.dtype("<f4"),
     "F16": lambda: np.dtype("<f2"),
-    "BF16": lambda: np.dtype(ml_dtypes.bfloat16),
-    "F8_E4M3": lambda: np.dtype(ml_dtypes.float8_e4m3fn),
-    "F8_E5M2": lambda: np.dtype(ml_dtypes.float8_e5m2),
-    "F8_E8M0": lambda: np.dtype(ml_dtypes.float8_e8m0fnu),
-    "F8_E4M3FNUZ": lambda: np.dtype(ml_dtypes.float8_e4m3fnuz),
-    "F8_E5M2FNUZ": lambda: np.dtype(ml_dtypes.float8_e5m2fnuz),
+    "BF16": lambda: np.dtype(ml_types.module().bfloat16),
+    "F8_E4M3": lambda: np.dtype(ml_types.module().float8_e4m3fn),
+    "F8_E5M2": lambda: np.dtype(ml_types.module().float8_e5m2),
+    "F8_E8M0": lambda: np.dtype(ml_types.module().float8_e8m0fnu),
+    "F8_E4M3FNUZ": lambda: np.dtype(ml_types.module().float8_e4m3fnuz),
+    "F8_E5M2FNUZ": lambda: np.dtype(ml_types.module().float8_e5m2fnuz),
     "I8": lambda: np.dtype("i1"),
     "I16": lambda: np.dtype("<i2"),
     "I32": lambda: np.dtype("<i4"),
