@@ -19,6 +19,8 @@ from typing import Any
 import ml_dtypes
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from bitprism.errors import BitprismError, UnsupportedInputError
 from bitprism.tensors.files import TensorFile, open_tensor, open_tensors
@@ -51,9 +53,13 @@ def write_safetensors(
 
 
 def write_raw_safetensors(path: Path, header: bytes, data: bytes = b"") -> Path:
-    header += b" " * (-len(header) % 8)
-    path.write_bytes(struct.pack("<Q", len(header)) + header + data)
+    path.write_bytes(safetensors_bytes(header, data))
     return path
+
+
+def safetensors_bytes(header: bytes, data: bytes = b"") -> bytes:
+    header += b" " * (-len(header) % 8)
+    return struct.pack("<Q", len(header)) + header + data
 
 
 def le_bytes(codes: list[int], width: int) -> bytes:
@@ -511,8 +517,11 @@ def test_npy_truncated(tmp_path: Path) -> None:
         (b"\x93NUMPY", r"is not a readable \.npy array"),
         (b"NOTNUMPY" + bytes(100), r"is not a readable \.npy array"),
         (b"\x93NUMPY\x01\x00\x20\x00{'descr': 'zz', 'shape': (1,)}     \n", r"is not a readable \.npy array"),
+        # a cut-short dictionary: numpy's header tokenizer raises its own error type
+        (b"\x93NUMPY\x01\x00\x30\x00{'descr': '<f4', 'shape': (4, 5" + b" " * 23 + b"\n",
+         r"is not a readable \.npy array \(its header dictionary is cut short"),
     ],
-    ids=["empty", "magic-only", "bad-magic", "bad-descr"],
+    ids=["empty", "magic-only", "bad-magic", "bad-descr", "unbalanced-brackets"],
 )
 def test_npy_malformed(tmp_path: Path, content: bytes, problem: str) -> None:
     path = tmp_path / "bad.npy"
@@ -595,6 +604,71 @@ def test_npz_not_a_zip(tmp_path: Path) -> None:
     path.write_bytes(b"this is not a zip archive")
     with pytest.raises(BitprismError, match=r"fake\.npz: is not a readable \.npz \(zip\) archive"):
         open_tensors(path)
+
+
+def test_npz_needing_a_newer_zip_version(tmp_path: Path) -> None:
+    # APPNOTE.TXT 4.3.12: the central directory entry (signature PK\x01\x02) holds "version
+    # needed to extract" at offset 6; zipfile refuses versions above 6.3 with NotImplementedError
+    np.savez(tmp_path / "v.npz", a=np.ones(3))
+    data = bytearray((tmp_path / "v.npz").read_bytes())
+    entry = data.index(b"PK\x01\x02")
+    data[entry + 6 : entry + 8] = struct.pack("<H", 99)
+    (tmp_path / "v.npz").write_bytes(bytes(data))
+    with pytest.raises(BitprismError, match=r"v\.npz: is a \.npz \(zip\) archive this reader cannot open"):
+        open_tensors(tmp_path / "v.npz")
+
+
+def _valid_files() -> dict[str, bytes]:
+    """One small valid file of each kind (and a compressed .npz), to damage."""
+    npy, npz, npz_deflated = io.BytesIO(), io.BytesIO(), io.BytesIO()
+    np.save(npy, np.linspace(-3, 3, 20, dtype=np.float32).reshape(4, 5))
+    np.savez(npz, a=np.ones(7), c=np.zeros((2, 2), np.float32))
+    np.savez_compressed(npz_deflated, a=np.ones(7), c=np.zeros((2, 2), np.float32))
+    header = {"w": {"dtype": "F32", "shape": [3], "data_offsets": [0, 12]},
+              "b": {"dtype": "F16", "shape": [2], "data_offsets": [12, 16]}}
+    safetensors = safetensors_bytes(json.dumps(header).encode(),
+                                    np.float32([1, 2, 3]).tobytes() + np.float16([4, 5]).tobytes())
+    return {"a.npy": npy.getvalue(), "a.npz": npz.getvalue(), "z.npz": npz_deflated.getvalue(),
+            "a.safetensors": safetensors}
+
+
+_VALID = _valid_files()
+
+
+@settings(max_examples=400, deadline=None)
+@given(
+    kind=st.sampled_from(sorted(_VALID)),
+    edits=st.lists(
+        st.tuples(
+            st.sampled_from(["set", "cut", "insert"]),
+            st.one_of(st.integers(0, 127), st.integers(0, 1 << 16)),  # headers come first
+            st.one_of(st.binary(min_size=1, max_size=4),
+                      st.sampled_from([b"(", b")", b"{", b"}", b"'", b'"', b":", b",", b"9", b"\xff"])),
+        ),
+        min_size=1, max_size=4,
+    ),
+)
+def test_damaged_files_give_a_clear_error_or_read(tmp_path_factory: pytest.TempPathFactory, kind: str,
+                                                  edits: list[tuple[str, int, bytes]]) -> None:
+    # any damage to a valid file is either harmless or a BitprismError naming the file; never
+    # a traceback from numpy, zipfile, json or struct (the issue's bad-input rule)
+    data = bytearray(_VALID[kind])
+    for op, at, blob in edits:
+        at %= len(data) + 1
+        if op == "set" and at < len(data):
+            data[at] = blob[0]
+        elif op == "cut":
+            del data[at:]
+        else:
+            data[at:at] = blob
+    path = tmp_path_factory.mktemp("damaged") / kind
+    path.write_bytes(bytes(data))
+    try:
+        tensors = open_tensors(path)
+        for name in tensors:
+            np.asarray(tensors[name]).sum()
+    except BitprismError as exc:
+        assert kind in str(exc)
 
 
 def test_npz_truncated_archive(tmp_path: Path) -> None:

@@ -30,6 +30,7 @@ import math
 import os
 import struct
 import sys
+import tokenize
 import zipfile
 from collections.abc import Iterator, Mapping
 from typing import Any, Callable, Union
@@ -307,6 +308,13 @@ def _npy_header(f: Any, where: str, path: PathLike) -> tuple[tuple[int, ...], bo
             raise ValueError(f"unsupported .npy format version {version[0]}.{version[1]}")
     except (ValueError, OSError, EOFError, SyntaxError, zipfile.BadZipFile) as exc:
         raise _fail(path, f"{where}is not a readable .npy array ({exc})") from exc
+    except tokenize.TokenError as exc:  # numpy tokenizes the header dictionary's text
+        raise _fail(
+            path, f"{where}is not a readable .npy array (its header dictionary is cut short "
+            "or has unbalanced brackets or quotes)"
+        ) from exc
+    except Exception as exc:  # anything else numpy's header reader raises on damaged bytes
+        raise _fail(path, f"{where}is not a readable .npy array ({type(exc).__name__}: {exc})") from exc
     if dtype.hasobject:
         raise UnsupportedInputError(
             f"{os.fspath(path)}: {where}holds Python objects (dtype {dtype.str!r}); bitprism "
@@ -357,6 +365,12 @@ def _npz_loaders(path: PathLike) -> dict[str, Callable[[], np.ndarray]]:
             infos = zf.infolist()
     except (zipfile.BadZipFile, OSError, ValueError, EOFError) as exc:
         raise _fail(path, f"is not a readable .npz (zip) archive ({exc})") from exc
+    except NotImplementedError as exc:  # zipfile's word for a version or method it lacks
+        raise _fail(path, f"is a .npz (zip) archive this reader cannot open ({exc})") from exc
+    except Exception as exc:  # anything else zipfile raises on a damaged directory
+        raise _fail(
+            path, f"is not a readable .npz (zip) archive ({type(exc).__name__}: {exc})"
+        ) from exc
     loaders: dict[str, Callable[[], np.ndarray]] = {}
     for info in infos:
         if info.is_dir():
