@@ -272,3 +272,29 @@ def test_stochastic_scalar_inputs_pick_a_neighbour():
         down, up, _ = O.stochastic(v, L)
         for seed in range(8):
             assert bitprism.encode(v, "float16", rounding="stochastic", seed=seed) in {down, up}
+
+
+@pytest.mark.parametrize("rounding", list(bitprism.ROUNDING_MODES))
+def test_extra_memory_is_the_fixed_scratch(rounding: str) -> None:
+    # encode works in chunks of kernel.CHUNK elements with reused buffers (design.md: memory
+    # stays the output plus a fixed scratch): five chunk-sized float32 buffers (a, b, c, side,
+    # the low-range correction's), the random words of stochastic rounding and a bool mask,
+    # whatever the input size. Chunk-sized temporaries in numpy calls would exceed it.
+    import tracemalloc
+
+    from bitprism.numerics.kernel import CHUNK
+
+    rng = np.random.default_rng(23)  # invented data: exponents over float16's whole range
+    x = (rng.uniform(1, 2, 1 << 20) * np.exp2(rng.integers(-30, 20, 1 << 20))).astype(np.float32)
+    buffers = 6 if rounding == "stochastic" else 5
+    budget = buffers * CHUNK * 4 + CHUNK + (128 << 10)  # + 128 KiB for small objects
+    peaks = []
+    for n in (x.size // 4, x.size):
+        bitprism.encode(x[:100], "float16", rounding, seed=1)  # warm caches (plans, tables)
+        tracemalloc.start()
+        out = bitprism.encode(x[:n], "float16", rounding, seed=1)
+        peak = tracemalloc.get_traced_memory()[1]
+        tracemalloc.stop()
+        peaks.append(peak - out.nbytes)
+    assert max(peaks) <= budget, (peaks, budget)
+    assert abs(peaks[1] - peaks[0]) <= 64 << 10  # independent of the input size
