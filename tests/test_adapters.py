@@ -18,6 +18,7 @@ import ml_dtypes
 import numpy as np
 import pytest
 
+import bitprism
 from bitprism.errors import BitprismError, UnsupportedInputError
 from bitprism.tensors.adapters import as_array, is_dask_array
 
@@ -274,6 +275,19 @@ def test_jax_arrays_keep_bfloat16() -> None:
     x = jnp.array([1.0, 2.0], dtype=jnp.bfloat16)
     out = as_array(x)
     assert out.dtype == ml_dtypes.bfloat16 and out.tolist() == [1.0, 2.0]
+
+
+@pytest.mark.parametrize("name", ["float8_e4m3fn", "float8_e5m2", "float16", "float32"])
+def test_jax_arrays_keep_their_bits_and_scan_like_numpy(name: str) -> None:
+    jnp = pytest.importorskip("jax.numpy")
+    # JAX's narrow floats are ml_dtypes' types (the reference for these formats)
+    ref = np.array([0.0, -0.0, 0.5, -448.0, 3.0, 1e-3], dtype=getattr(ml_dtypes, name, name))
+    out = as_array(jnp.asarray(ref))
+    assert out.dtype == ref.dtype
+    assert out.view(f"u{ref.itemsize}").tolist() == ref.view(f"u{ref.itemsize}").tolist()
+    via_jax = bitprism.scan(jnp.asarray(ref), ["float8_e4m3fn", "float4_e2m1fn"], progress=False)
+    via_numpy = bitprism.scan(ref, ["float8_e4m3fn", "float4_e2m1fn"], progress=False)
+    assert via_jax.to_text() == via_numpy.to_text()
 
 
 # ----- dask: recognised, not converted -------------------------------------------------------
