@@ -160,6 +160,9 @@ def test_scan_fail_on(capsys, tmp_path, condition, tensor, expected):
             "--fail-on", condition, "--no-progress"]
     code, out, err = run(capsys, *argv)
     assert code == expected, (out, err)
+    code, out, err = run(capsys, *argv, "--json")  # counted from the full summary there
+    assert code == expected, (out, err)
+    assert json.loads(out)["failed"] == ([condition] if expected else [])
 
 
 def test_scan_json(capsys, tmp_path):

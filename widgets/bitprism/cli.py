@@ -320,7 +320,8 @@ def _cmd_scan(args: argparse.Namespace) -> int:
             progress=not args.no_progress,
             quantiles=False if args.quantiles == "none" else args.quantiles,
         )
-        summary = _scan_summary(result, formats)
+        # the full summary (exact decimal strings) only for --json: text needs the counts alone
+        summary = _scan_summary(result, formats) if args.json else _counts(result, wanted)
         met = _conditions_met(summary, wanted)
         failed.update(met)
         reports.append((name, arr, result, summary, met))
@@ -382,6 +383,11 @@ def _plain(value: Any) -> Any:
             return str(value)
         return _exact_string(Fraction(value))
     return str(value)
+
+
+def _counts(result: Any, names: list[str]) -> dict[str, dict[str, Any]]:
+    """The counts ``names`` (``--fail-on`` conditions) of each format of a ``ScanResult``."""
+    return {row.format: {n: getattr(row, n) for n in names} for row in result.formats}
 
 
 def _scan_summary(result: Any, formats: list[Any]) -> dict[str, dict[str, Any]]:
