@@ -25,7 +25,7 @@ import bitprism.tensors.scan as scan_mod
 from bitprism.errors import BitprismError
 from bitprism.formats import get_format
 from bitprism.numerics.options import CastOptions
-from bitprism.tensors.partials import ExactSum
+from bitprism.tensors.partials import ExactSum, compress_values
 from bitprism.tensors.scan import ScanResult, scan
 
 WITH_INF = ("bfloat16", "float16", "float8_e5m2")  # IEEE-style: overflow -> Inf
@@ -667,3 +667,32 @@ def test_block_nan_is_counted_apart_from_overflow() -> None:
     assert f["float16"].block_nan is None
     assert "block NaN" in f.to_text() and "block NaN" in f.to_html()
     assert f[fmt.name].fraction("block_nan") == 62 / x.size
+
+
+_REPEATS = st.sampled_from([0.0, 1.0, 0.5, 2.0**-30, math.nan])  # relative errors repeat a lot
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(
+    st.one_of(
+        st.lists(st.one_of(_REPEATS, st.floats(0, 2, allow_nan=False)), max_size=40),
+        st.tuples(st.lists(_REPEATS, min_size=1, max_size=5, unique_by=str), st.integers(1, 9)),
+    ),
+    min_size=1, max_size=4,
+))
+def test_compress_values_matches_numpy_unique(parts_spec: list) -> None:
+    # sorted distinct values with summed weights, whether the parts are plain values (one
+    # block: the sort path) or (values, counts) pairs (merges): numpy's unique is the reference
+    parts = []
+    for p in parts_spec:
+        if isinstance(p, tuple):
+            vals = np.unique(np.array(p[0]))  # a pair holds distinct sorted values
+            parts.append(np.stack((vals, np.full(vals.size, float(p[1])))))
+        else:
+            parts.append(np.array(p, np.float64))
+    values = np.concatenate([q if q.ndim == 1 else q[0] for q in parts])
+    weights = np.concatenate([np.ones(q.size) if q.ndim == 1 else q[1] for q in parts])
+    uniq, inv = np.unique(values, return_inverse=True)
+    expected = np.stack((uniq, np.bincount(inv.reshape(-1), weights=weights, minlength=uniq.size)))
+    got = compress_values(parts)
+    assert got.shape == expected.shape and np.array_equal(got, expected, equal_nan=True)

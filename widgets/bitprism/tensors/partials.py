@@ -128,6 +128,14 @@ def compress_values(parts: list[np.ndarray]) -> np.ndarray:
     if not values:
         return np.zeros((2, 0))
     v = np.concatenate(values)
+    if all(p.ndim == 1 for p in parts):  # every weight 1 (one block's values): a plain sort
+        v.sort()  # v is a fresh array here (concatenate copies)
+        if v.size and not np.isnan(v[-1]):  # NaNs sort last; np.unique below merges them
+            new = np.empty(v.size, np.bool_)
+            new[:1] = True
+            np.not_equal(v[1:], v[:-1], out=new[1:])
+            starts = np.flatnonzero(new)
+            return np.stack((v[starts], np.diff(starts, append=v.size).astype(np.float64)))
     w = np.concatenate(weights)
     uniq, inv = np.unique(v, return_inverse=True)
     counts = np.bincount(inv.reshape(-1), weights=w, minlength=uniq.size)
