@@ -11,6 +11,7 @@ float8 page (reference-values.md §2.2).
 from __future__ import annotations
 
 import math
+import tracemalloc
 import warnings
 from fractions import Fraction
 from functools import lru_cache
@@ -20,6 +21,7 @@ import pytest
 
 import bitprism
 import oracle as O
+from bitprism.numerics.kernel import CHUNK
 
 MODES = O.DETERMINISTIC_ROUNDINGS
 FORMAT_NAMES = ["float16", "bfloat16", "tf32", "float8_e4m3fn", "float8_e5m2",
@@ -280,10 +282,6 @@ def test_extra_memory_is_the_fixed_scratch(rounding: str) -> None:
     # stays the output plus a fixed scratch): five chunk-sized float32 buffers (a, b, c, side,
     # the low-range correction's), the random words of stochastic rounding and a bool mask,
     # whatever the input size. Chunk-sized temporaries in numpy calls would exceed it.
-    import tracemalloc
-
-    from bitprism.numerics.kernel import CHUNK
-
     rng = np.random.default_rng(23)  # invented data: exponents over float16's whole range
     x = (rng.uniform(1, 2, 1 << 20) * np.exp2(rng.integers(-30, 20, 1 << 20))).astype(np.float32)
     buffers = 6 if rounding == "stochastic" else 5
