@@ -122,7 +122,8 @@ def test_scans_side_by_side():
     data = sample(1, 10)  # |x| up to a few thousand: E4M3 (max 448) overflows unscaled
     advice = suggest_scale(data, "e4m3")
     assert advice.before is not None and advice.after is not None
-    # independent count with ml_dtypes (non-saturating: overflow -> NaN, reference-values §2.2)
+    # independent count with ml_dtypes (non-saturating, OCP OFP8 rev 1.0 NONSAT as tabulated on
+    # the ONNX float8 page: overflow -> NaN)
     unscaled = data.astype(ml_dtypes.float8_e4m3fn).astype(np.float64)
     assert advice.before["float8_e4m3fn"].overflow == int(np.isnan(unscaled).sum()) > 0
     assert advice.after["float8_e4m3fn"].overflow == 0

@@ -3,10 +3,12 @@
 ml_dtypes 0.7 and numpy 2.4 round float64 and float32 inputs once, ties to even, with their own
 (non-saturating) overflow: exactly bitprism's default options (roundTiesToEven, overflow
 "standard", subnormals "keep"). So for those formats ``x.astype(dtype)`` is the oracle (from
-library), on the edge and tie cases of reference-values.md and on 2^20 random inputs per
-format. NaN inputs are compared by NaN-ness and sign only; for FP6/FP4 (no NaN) ml_dtypes flips
-the sign of the zero it returns (reference-values.md §8.1, §11.4): the documented exception.
-TF32 has no library type and is checked against the exact oracle and the §5.2 table.
+library), on the edge and tie cases below (each group names its source) and on 2^20 random
+inputs per format. NaN inputs are compared by NaN-ness and sign only; for FP6/FP4 (no NaN)
+ml_dtypes flips the sign of the zero it returns (from library; its include/mxfloat.h comment
+calls NaN conversion implementation-defined by OCP MX v1.0): the documented exception.
+TF32 has no library type and is checked against the exact oracle and a table of distinguishing
+float32 inputs (from library, bit arithmetic).
 """
 
 from __future__ import annotations
@@ -62,28 +64,31 @@ def assert_matches_library(x: np.ndarray, name: str, got: np.ndarray | None = No
         assert np.array_equal(got[nan_in], lib[nan_in] ^ L.sign_bit)
 
 
-# ----- edge and tie cases from reference-values.md ---------------------------------------------
-# (section, target, input, code the reference says the library gives; None: not stated)
+# ----- edge and tie cases, each group with its published source -------------------------------
+# (group label, target, input, code the library was recorded to give; None: not recorded)
 F32 = lambda bits: float(np.array([bits], dtype=np.uint32).view(np.float32)[0])  # exact
 EDGES = [
-    # §1.2 overflow threshold 2^emax (2 - 2^-p) for the nearest modes
+    # "1.2": IEEE 754-2008 §4.3.1 overflow threshold 2^emax (2 - 2^-p) for the nearest modes
+    # (codes from library: numpy, ml_dtypes)
     ("1.2", "float16", 65519.99, 0x7BFF), ("1.2", "float16", 65520.0, 0x7C00),
     ("1.2", "float16", -65520.0, 0xFC00),
     ("1.2", "bfloat16", F32(0x7F7F8000), 0x7F80), ("1.2", "bfloat16", F32(0x7F7F7FFF), 0x7F7F),
     ("1.2", "float32", float((2 - Fraction(1, 2**24)) * 2**127), 0x7F800000),
     ("1.2", "float32", math.nextafter(float((2 - Fraction(1, 2**24)) * 2**127), 0), 0x7F7FFFFF),
-    # §1.4 worked encodings (RNE of 1/3, 1/10, pi from float64)
+    # "1.4": IEEE 754 binary16/32 worked encodings, RNE of 1/3, 1/10, pi from float64 (from
+    # library: struct, float.hex, fractions, numpy)
     ("1.4", "float16", 1 / 3, 0x3555), ("1.4", "float16", 0.1, 0x2E66),
     ("1.4", "float32", 0.1, 0x3DCCCCCD), ("1.4", "float32", 1 / 3, 0x3EAAAAAB),
     ("1.4", "float32", math.pi, 0x40490FDB),
-    # §1.4 integer-gap ties
+    # "1.4": integer-gap ties (from library, numpy)
     ("1.4", "float16", 2049.0, 0x6800), ("1.4", "float16", 2051.0, 0x6802),
     ("1.4", "float32", 16777217.0, 0x4B800000), ("1.4", "float32", 16777219.0, 0x4B800002),
-    # §1.4 subnormal-boundary ties
+    # "1.4": subnormal-boundary ties (from library, numpy)
     ("1.4", "float16", 2.0**-25, 0x0000), ("1.4", "float16", 3 * 2.0**-26, 0x0001),
     ("1.4", "float16", -(2.0**-25), 0x8000),
     ("1.4", "float16", 1 + 2.0**-11, 0x3C00), ("1.4", "float16", 1 + 3 * 2.0**-11, 0x3C02),
-    # §2.2 E4M3 (float8_e4m3fn) ties and thresholds
+    # "2.2": OCP OFP8 rev 1.0 E4M3 (float8_e4m3fn) ties and thresholds, non-saturating (from
+    # library, ml_dtypes)
     ("2.2", "float8_e4m3fn", 448.0, 0x7E), ("2.2", "float8_e4m3fn", 449.0, 0x7E),
     ("2.2", "float8_e4m3fn", 463.99, 0x7E), ("2.2", "float8_e4m3fn", 464.0, 0x7E),
     ("2.2", "float8_e4m3fn", 464.0001, 0x7F), ("2.2", "float8_e4m3fn", 480.0, 0x7F),
@@ -92,19 +97,22 @@ EDGES = [
     ("2.2", "float8_e4m3fn", 1.0625, 0x38), ("2.2", "float8_e4m3fn", 1.1875, 0x3A),
     ("2.2", "float8_e4m3fn", 2.0**-10, 0x00), ("2.2", "float8_e4m3fn", 2.0**-10 * 1.0001, 0x01),
     ("2.2", "float8_e4m3fn", 3 * 2.0**-11, 0x01),
-    # §2.2 E5M2
+    # "2.2": OCP OFP8 rev 1.0 E5M2, non-saturating (from library, ml_dtypes)
     ("2.2", "float8_e5m2", 57344.0, 0x7B), ("2.2", "float8_e5m2", 61439.0, 0x7B),
     ("2.2", "float8_e5m2", 61440.0, 0x7C), ("2.2", "float8_e5m2", 61441.0, 0x7C),
     ("2.2", "float8_e5m2", 1e6, 0x7C), ("2.2", "float8_e5m2", math.inf, 0x7C),
     ("2.2", "float8_e5m2", 1.125, 0x3C), ("2.2", "float8_e5m2", 1.375, 0x3E),
     ("2.2", "float8_e5m2", 2.0**-17, 0x00),
-    # §5.1 float32 -> bfloat16 ties (inputs as float32 patterns)
+    # "5.1": float32 -> bfloat16 ties (inputs as float32 patterns; from library, ml_dtypes: no
+    # published worked tie example; the normal inputs agree with the Intel SDM VCVTNEPS2BF16
+    # RNE recipe)
     ("5.1", "bfloat16", F32(0x3F808000), 0x3F80), ("5.1", "bfloat16", F32(0x3F818000), 0x3F82),
     ("5.1", "bfloat16", F32(0x3F80C000), 0x3F81), ("5.1", "bfloat16", F32(0x3F807FFF), 0x3F80),
     ("5.1", "bfloat16", F32(0x3F808001), 0x3F81), ("5.1", "bfloat16", F32(0x3DCCCCCD), 0x3DCD),
     ("5.1", "bfloat16", F32(0x7F7F7FFF), 0x7F7F), ("5.1", "bfloat16", F32(0x7F7F8000), 0x7F80),
     ("5.1", "bfloat16", F32(0x7F7FFFFF), 0x7F80), ("5.1", "bfloat16", F32(0x00018000), 0x0002),
-    # §8 finfo dump: -0.0, -Inf, negative max tie for the 8-bit types
+    # "8": ml_dtypes 0.7 finfo and encodings (from library): -0.0, -Inf, negative max tie for
+    # the 8-bit types
     ("8", "float8_e4m3fn", -464.0, 0xFE), ("8", "float8_e4m3fn", -464.0001, 0xFF),
     ("8", "float8_e4m3fn", -1e6, 0xFF),
     ("8", "float8_e3m4", -math.inf, 0xF0), ("8", "float8_e4m3", -math.inf, 0xF8),
@@ -118,18 +126,19 @@ EDGES = [
     ("8", "float8_e5m2fnuz", 1.0, 0x40), ("8", "float8_e8m0fnu", 1.0, 0x7F),
     ("8", "float6_e2m3fn", 1.0, 0x08), ("8", "float6_e3m2fn", 1.0, 0x0C),
     ("8", "float4_e2m1fn", 1.0, 0x02), ("8", "bfloat16", 1.0, 0x3F80),
-    # §8.1 FP4 ties (values 0, 1, 1, 2, 2, 4, 4, 0.5, 6 -> codes)
+    # "8.1": ml_dtypes 0.7 FP4 ties (from library; values 0, 1, 1, 2, 2, 4, 4, 0.5, 6 -> codes)
     ("8.1", "float4_e2m1fn", 0.25, 0x0), ("8.1", "float4_e2m1fn", 0.75, 0x2),
     ("8.1", "float4_e2m1fn", 1.25, 0x2), ("8.1", "float4_e2m1fn", 1.75, 0x4),
     ("8.1", "float4_e2m1fn", 2.5, 0x4), ("8.1", "float4_e2m1fn", 3.5, 0x6),
     ("8.1", "float4_e2m1fn", 5.0, 0x6), ("8.1", "float4_e2m1fn", 0.2500001, 0x1),
     ("8.1", "float4_e2m1fn", 5.0001, 0x7),
-    # §8.1 FP6 ties and saturation
+    # "8.1": ml_dtypes 0.7 FP6 ties and saturation (from library)
     ("8.1", "float6_e2m3fn", 0.0625, 0x00), ("8.1", "float6_e2m3fn", 0.1875, 0x02),
     ("8.1", "float6_e3m2fn", 0.03125, 0x00), ("8.1", "float6_e3m2fn", 30.0, 0x1F),
     ("8.1", "float6_e3m2fn", 31.0, 0x1F), ("8.1", "float6_e3m2fn", 32.0, 0x1F),
     ("8.1", "float6_e2m3fn", math.inf, 0x1F), ("8.1", "float4_e2m1fn", math.inf, 0x07),
-    # §8.1 E8M0: no zero, no subnormal flush, ties up in the linear domain
+    # "8.1": ml_dtypes 0.7 E8M0 (from library): no zero, no subnormal flush, ties up in the
+    # linear domain
     ("8.1", "float8_e8m0fnu", 0.0, 0xFF), ("8.1", "float8_e8m0fnu", -0.0, 0xFF),
     ("8.1", "float8_e8m0fnu", -1.0, 0xFF), ("8.1", "float8_e8m0fnu", 2.0**128, 0xFF),
     ("8.1", "float8_e8m0fnu", 2.0**-128, 0x00), ("8.1", "float8_e8m0fnu", 0.75 * 2.0**-127, 0x00),
@@ -147,7 +156,7 @@ EDGES = [
 def test_reference_edge_cases(section, name, x, doc_code):
     dt = O.library_dtype(name)
     lib = int(O.library_encode(np.array([x]), dt)[0])  # from library
-    if doc_code is not None:  # the library still does what reference-values.md recorded
+    if doc_code is not None:  # the library still gives the code recorded above
         assert lib == doc_code
     arr = _encode(np.array([x]), name)
     assert int(arr[0]) == lib
@@ -238,10 +247,10 @@ def test_no_runtime_warnings_on_nan_and_random_patterns(name):
                 bitprism.encode(x, bitprism.FORMATS[name], rounding=rounding, seed=1)
 
 
-# ----- §8.1 double-rounding trap -----------------------------------------------------------------
+# ----- double-rounding trap (ml_dtypes 0.7, from library) -----------------------------------------
 @pytest.mark.parametrize(
     "name, x, direct, via_float32",
-    [  # reference-values.md §8.1 (from library): direct rounding vs through float32 first
+    [  # ml_dtypes 0.7 (from library): direct rounding vs through float32 first
         ("bfloat16", 1 + 2.0**-8 + 2.0**-30, 1 + 2.0**-7, 1.0),
         ("float16", 1 + 2.0**-11 + 2.0**-30, 1 + 2.0**-10, 1.0),
         ("float8_e4m3fn", 1 + 2.0**-4 + 2.0**-26, 1.125, 1.0),
@@ -258,10 +267,11 @@ def test_double_rounding_trap(name, x, direct, via_float32):
     assert O.BUILTIN_LAYOUTS[name].to_float(O.encode(x, O.BUILTIN_LAYOUTS[name])) == direct
 
 
-# ----- exact (scalar) inputs: one rounding from the rational, §1.4 and §9 -----------------------
+# ----- exact (scalar) inputs: one rounding from the rational ------------------------------------
 @pytest.mark.parametrize(
     "name, x, code",
-    [  # reference-values.md §1.4 (binary16/32) and §9 (from library, via float64 inputs)
+    [  # IEEE 754 binary16/32 encodings and cross-format error tables (from library: numpy /
+       # ml_dtypes RNE of float64 inputs, exact fractions)
         ("float16", Fraction(1, 3), 0x3555), ("float16", Fraction(1, 10), 0x2E66),
         ("float32", Fraction(1, 3), 0x3EAAAAAB), ("float32", Fraction(1, 10), 0x3DCCCCCD),
         ("bfloat16", Fraction(1, 10), 0x3DCD), ("bfloat16", Fraction(1, 3), 0x3EAB),
@@ -278,13 +288,15 @@ def test_exact_rational_inputs(name, x, code):
     assert bitprism.encode(-x, bitprism.FORMATS[name]) == code | O.BUILTIN_LAYOUTS[name].sign_bit
 
 
-# ----- TF32: no library type; the exact oracle and reference-values.md §5.2 ---------------------
+# ----- TF32: no library type; the exact oracle and the distinguishing inputs ---------------------
 TF32 = bitprism.FORMATS["tf32"]
 
 
 @pytest.mark.parametrize(
     "f32_bits, rne, rna, rtz",
-    [  # reference-values.md §5.2 table (RNE / RNA (ties away) / truncate), as fp32 patterns
+    [  # RNE (Intel SPIR-V SPV_INTEL_tensor_float32_conversion) / RNA, ties away (PTX
+       # cvt.rna.tf32.f32) / truncate (PyTorch numerical-accuracy notes); the sources disagree.
+       # Codes from library (bit arithmetic), as fp32 patterns
         (0x3F801000, 0x3F800000, 0x3F802000, 0x3F800000),  # 1 + 2^-11, exact tie
         (0x3F803000, 0x3F804000, 0x3F804000, 0x3F802000),  # 1 + 3*2^-11, tie
         (0x3F801800, 0x3F802000, 0x3F802000, 0x3F800000),  # above the tie
@@ -293,7 +305,8 @@ TF32 = bitprism.FORMATS["tf32"]
 )
 def test_tf32_section_5_2_table(f32_bits, rne, rna, rtz):
     x = np.array([f32_bits], dtype=np.uint32).view(np.float32)
-    # TF32 code = the float32 pattern without its 13 low fraction bits (§5.2 layout)
+    # TF32 code = the float32 pattern without its 13 low fraction bits (RISC-V BF16 chapter
+    # TF32 table; TensorFlow TF32 RFC)
     for rounding, want in (("roundTiesToEven", rne), ("roundTiesToAway", rna),
                            ("roundTowardZero", rtz)):
         assert int(bitprism.encode(x, TF32, rounding=rounding)[0]) == want >> 13

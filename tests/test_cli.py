@@ -67,7 +67,8 @@ def test_show_json_reads_value_exactly(capsys, text, value):
 
 
 def test_show_options_change_the_result(capsys):
-    # 1e6 overflows E4M3 (max 448, OFP8 rev 1.0; reference-values §2.2): NaN, or 448 saturated
+    # 1e6 overflows E4M3 (max 448, OCP OFP8 rev 1.0): NaN, or 448 saturated (SAT / NONSAT
+    # conversion tables of the ONNX float8 page; OFP8 "Table 3" from memory)
     _, out, _ = run(capsys, "show", "1e6", "--formats", "e4m3", "--json")
     assert json.loads(out)["formats"][0]["code"] == "0x7f"
     _, out, _ = run(capsys, "show", "1e6", "--formats", "e4m3", "--overflow", "saturate", "--json")

@@ -88,7 +88,7 @@ def test_derived_values_match_finfo(name):
     assert fmt.max_finite == _F(fi.max)
     assert fmt.smallest_normal == _F(fi.smallest_normal)
     assert fmt.smallest_subnormal == _F(fi.smallest_subnormal)
-    # numpy's maxexp is emax + 1, minexp is emin (reference-values.md §8)
+    # numpy's maxexp is emax + 1, minexp is emin (numpy finfo / ml_dtypes finfo, from library)
     assert fmt.emin == fi.minexp
     assert fmt.emax == fi.maxexp - 1
     for prop in ("max_finite", "smallest_normal", "smallest_subnormal", "epsilon"):
@@ -106,7 +106,8 @@ def test_max_code_and_special_codes_decode_in_library(name):
     if fmt.has_nan:
         nan = O.library_decode([fmt.nan_code], dt)[0]
         assert math.isnan(nan)
-        # the canonical NaN is the one the library produces for numpy's +NaN (§1.3, §8)
+        # the canonical NaN is the one the library produces for numpy's +NaN (IEEE 754-2008
+        # §6.2.1 quiet NaN; encodings from library: numpy / ml_dtypes)
         assert int(O.library_encode(np.array([np.nan]), dt)[0]) == fmt.nan_code
     else:
         assert fmt.nan_code is None
@@ -158,7 +159,7 @@ def test_ieee_canonical_nan_is_quiet(name):
     assert fmt.nan_code == fmt.inf_code | (1 << (t - 1))
 
 
-# ----- IEEE 754-2008 §3.6 Table 3.5 (confirmed in text, reference-values.md §1.1) ---------------
+# ----- IEEE 754-2008 §3.6 Table 3.5 (confirmed in text, via a public transcription) ---------------
 @pytest.mark.parametrize(
     "name, k, p, emax, bias, w, t",
     [
@@ -170,12 +171,12 @@ def test_ieee_canonical_nan_is_quiet(name):
 def test_ieee754_table_3_5(name, k, p, emax, bias, w, t):
     fmt = bitprism.FORMATS[name]
     assert fmt.bits == k and fmt.precision == p and fmt.emax == emax and fmt.bias == bias
-    assert fmt.emin == 1 - emax  # §3.3: emin shall be 1 - emax
+    assert fmt.emin == 1 - emax  # IEEE 754-2008 §3.3: emin shall be 1 - emax
     assert fmt.exponent_bits == w and fmt.significand_bits == t == p - 1
 
 
 # ----- FP8 paper (arXiv 2209.05433) Table 1 = OCP OFP8 rev 1.0 (2023-06-20 / 2023-12-01) -------
-# (confirmed in text via two transcriptions and the ONNX float8 page; reference-values.md §2.1, §4)
+# (confirmed in text via two public transcriptions of the paper's Table 1 and the ONNX float8 page)
 FP8_TABLE_1 = [
     # name, code, exact value, class
     ("float8_e4m3fn", 0x7E, Fraction(448), "normal"),  # max normal S.1111.110 = 1.75*2^8
@@ -219,15 +220,15 @@ def test_fp8_table_1_specials():
 
 
 def test_fp8_paper_extra_e4m3_magnitudes():
-    # FP8 paper §3.1 (confirmed in text via notes): E4M3 gains 256, 288, ..., 448 in the
-    # all-ones exponent binade (codes 0x78-0x7E); without this the maximum would be 240, which
-    # is the max of the IEEE-like variant float8_e4m3.
+    # FP8 paper §3.1 (confirmed in text via a verbatim quote in public notes): E4M3 gains 256,
+    # 288, ..., 448 in the all-ones exponent binade (codes 0x78-0x7E); without this the maximum
+    # would be 240, which is the max of the IEEE-like variant float8_e4m3.
     e4m3 = bitprism.FORMATS["float8_e4m3fn"]
     assert [e4m3.code_value(c) for c in range(0x78, 0x7F)] == [256, 288, 320, 352, 384, 416, 448]
     assert bitprism.FORMATS["float8_e4m3"].max_finite == 240
 
 
-# ----- OCP Microscaling (MX) v1.0, Sept 2023 (reference-values.md §3) ---------------------------
+# ----- OCP Microscaling (MX) v1.0, Sept 2023 (Tables 4, 5, 7; via public transcriptions) ----------
 @pytest.mark.parametrize(
     "name, bias, max_normal, min_normal, max_sub, min_sub",
     [
@@ -272,7 +273,7 @@ def test_mx_e8m0_scale():
         assert e8m0.code_value(code) == Fraction(value)
 
 
-# ----- §1.4 worked encodings (from library: struct, float.hex, fractions) ------------------------
+# ----- IEEE 754 binary16/32/64 worked encodings (from library: struct, float.hex, fractions) ------
 WORKED = [
     ("float16", 0x3C00, Fraction(1)),
     ("float16", 0x3C01, 1 + Fraction(1, 2**10)),
@@ -315,14 +316,14 @@ def test_worked_encodings_section_1_4(name, code, exact):
     assert bitprism.decode(code, fmt) == from_struct
 
 
-# ----- TF32 (reference-values.md §5.2; RISC-V BF16 chapter table, TF32 RFC) -----------------------
+# ----- TF32 (RISC-V BF16 chapter table, TensorFlow TF32 RFC, NVIDIA CUDA __nv_tf32) ---------------
 def test_tf32_layout():
     tf32 = bitprism.FORMATS["tf32"]
     assert (tf32.exponent_bits, tf32.significand_bits, tf32.bias) == (8, 10, 127)
     assert tf32.bits == 19 and tf32.storage_bits == 32 and tf32.code_dtype == np.uint32
     assert tf32.dtype is None
     assert (tf32.precision, tf32.emax, tf32.emin) == (11, 127, -126)
-    assert tf32.epsilon == Fraction(1, 2**10)  # §5.2: eps 2^-10
+    assert tf32.epsilon == Fraction(1, 2**10)  # eps 2^-10, derived from the 10 fraction bits
     # TF32 values are float32 values with the low 13 fraction bits zero: code << 13 is the
     # float32 pattern (from library: numpy float32 view)
     f32 = lambda bits: Fraction(float(np.array([bits], dtype=np.uint32).view(np.float32)[0]))
@@ -337,7 +338,7 @@ def test_tf32_layout():
     "alias, canonical",
     [  # common practice (framework and paper spellings)
         ("fp32", "float32"), ("bf16", "bfloat16"), ("fp16", "float16"), ("half", "float16"),
-        ("e4m3", "float8_e4m3fn"),  # OCP E4M3 is the 'fn' variant (§11.1)
+        ("e4m3", "float8_e4m3fn"),  # OCP E4M3 is the 'fn' variant (ml_dtypes README naming)
         ("e5m2", "float8_e5m2"), ("fp4", "float4_e2m1fn"), ("e8m0", "float8_e8m0fnu"),
         ("fp64", "float64"), ("FP16", "float16"), ("Float8-E4M3FN", "float8_e4m3fn"),
     ],

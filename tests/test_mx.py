@@ -1,8 +1,9 @@
 """MX block formats (OCP Microscaling Formats Specification v1.0, Sept 2023).
 
-Reference values come from reference-values.md §3 (MX Tables 1, 5-7 and §6.3, via
-transcriptions and the reference emulation library), each check naming its section. The
-element-by-element oracle below is a scalar re-implementation of the §6.3 rule in
+Reference values follow OCP MX v1.0 (Tables 1, 5-7 and §6.3, confirmed in text via public
+transcriptions and the reference emulation library microsoft/microxcaling); the worked blocks
+apply the §6.3 rule with ml_dtypes casts (from library). Each check names its table or section.
+The element-by-element oracle below is a scalar re-implementation of the §6.3 rule in
 ``fractions.Fraction``; it uses neither bitprism nor ml_dtypes.
 """
 
@@ -17,7 +18,7 @@ import pytest
 
 from bitprism.tensors.mx import MX_FORMATS, decode_mx, get_mx_format, mx_quantize
 
-# ----- an independent scalar model of the MX element formats (reference-values §3.2) ----------
+# ----- an independent scalar model of the MX element formats (OCP MX v1.0 Tables 2, 4-6) -------
 # (t = trailing significand bits, bias, max normal, sign bit position); the values are the
 # published ones (MX v1.0 Tables 2/4/5, OFP8 rev 1.0), not read from bitprism.
 ELEMENTS = {
@@ -92,7 +93,7 @@ def block32(first: list[float], dtype: type = np.float64) -> np.ndarray:
     return x
 
 
-# ----- worked blocks: reference-values §3.4, "MX v1.0 §6.3" -----------------------------------
+# ----- worked blocks: the OCP MX v1.0 §6.3 rule with ml_dtypes RNE casts (from library) --------
 WORKED = [
     # (id, format, inputs, input dtype, E8M0 code, element codes, dequantized values)
     ("mxfp4", "mxfp4", [7.0, -5.0, 2.5, 1.25, 0.75, 0.25, -0.1, 3.0], np.float64, 0x7F,
@@ -119,7 +120,7 @@ WORKED = [
     ids=[w[0] for w in WORKED],
 )
 def test_worked_blocks(name, inputs, dtype, scale, codes, values):
-    """reference-values §3.4 worked blocks (MX v1.0 §6.3; remaining elements are 0)."""
+    """Worked blocks (OCP MX v1.0 §6.3, values from library; remaining elements are 0)."""
     r = mx_quantize(block32(inputs, dtype), name)
     n = len(inputs)
     assert r.scales.tolist() == [scale]
@@ -133,7 +134,8 @@ def test_worked_blocks(name, inputs, dtype, scale, codes, values):
 
 
 def test_fp4_ties_away_differs_as_noted():
-    """reference-values §11 item 7: ties-away on the §3.4 MXFP4 block gives -6, 3, 1.5, 1, 0.5."""
+    """microxcaling's default round='nearest' is ties-away (read in its code): on the MXFP4
+    worked block it gives -6, 3, 1.5, 1, 0.5."""
     x = block32([7.0, -5.0, 2.5, 1.25, 0.75, 0.25])
     r = mx_quantize(x, "mxfp4", rounding="roundTiesToAway")
     assert r.values[:6].tolist() == [6.0, -6.0, 3.0, 1.5, 1.0, 0.5]
@@ -170,7 +172,7 @@ def test_against_fraction_reference(name):
         np.testing.assert_array_equal(r.values[b], np.asarray(values))
 
 
-# ----- the clamp property (reference-values §3.4 "Key property") ---------------------------
+# ----- the clamp property (derived from the OCP MX v1.0 §6.3 clamp) ---------------------------
 # amax = m * 2^e, m in [1, 2): the largest element clamps exactly when m exceeds this bound.
 CLAMP_BOUND = {
     "mxfp4": Fraction(3, 2),  # 4m > 6
@@ -184,7 +186,8 @@ CLAMP_BOUND = {
 @pytest.mark.parametrize("name", FLOAT_FORMATS)
 @pytest.mark.parametrize("e", [-20, -3, 0, 7, 60])
 def test_clamp_property(name, e):
-    """reference-values §3.4 key property (MX v1.0 §6.3 clamp to the largest normal)."""
+    """Derived from OCP MX v1.0 §6.3 (clamp to the largest normal): the largest element clamps
+    exactly when the significand m of amax exceeds the bound."""
     bound = CLAMP_BOUND[name]
     max_normal = float(ELEMENTS[name]["max"])
     X = 2.0 ** (e - ELEMENTS[name]["emax"])
@@ -202,7 +205,8 @@ def test_clamp_property(name, e):
 
 
 def test_clamp_beyond_rounding_threshold_is_not_nan():
-    """reference-values §3.4: a plain cast of 464 (E4M3) / 61440 (E5M2) overflows; MX clamps."""
+    """A plain (non-saturating) ml_dtypes cast of 464 (E4M3) / 61440 (E5M2) overflows (from
+    library); OCP MX v1.0 §6.3 clamps."""
     r = mx_quantize(block32([1.8125, 0.1]), "mxfp8_e4m3")  # ratio 1.8125 * 256 = 464
     assert r.elements[0] == 0x7E and r.values[0] == 1.75
     r = mx_quantize(block32([1.875, 0.1]), "mxfp8_e5m2")  # ratio 1.875 * 2^15 = 61440
@@ -210,7 +214,8 @@ def test_clamp_beyond_rounding_threshold_is_not_nan():
 
 
 def test_mxint8_symmetric_clamp():
-    """reference-values §3.2: MXINT8 clamps to +-127/64; 0x80 (-2.0) is never produced."""
+    """MXINT8 clamps to +-127/64 (OCP MX v1.0 Table 6 via a hardware summary; microxcaling);
+    0x80 (-2.0) is never produced (whether the spec admits it: from memory, unverified)."""
     r = mx_quantize(block32([-1.999, 1.999, -2.0 + 2.0**-40]), "mxint8")  # shared exp 0 - 0
     assert r.scales[0] == 127
     assert r.values[:3].tolist() == [-127 / 64, 127 / 64, -127 / 64]

@@ -4,8 +4,9 @@ The oracle is compared with ml_dtypes 0.7 and numpy 2.4 (from library) on every 
 16-bit format they implement: decoding of every code, classification, and round-to-nearest-even
 encoding of edge, tie and random inputs. Its directed modes, which the libraries do not offer,
 are compared with a brute-force search over the sorted value set, and its TF32 rounding with
-the integer recipes on float32 bit patterns (Intel SDM VCVTNEPS2BF16 style, §5.1/§5.2 of
-reference-values.md). None of this imports bitprism's numeric code.
+the integer recipes on float32 bit patterns (in the style of the Intel SDM VCVTNEPS2BF16 entry;
+TF32 layout from the RISC-V BF16 chapter table and the TensorFlow TF32 RFC). None of this
+imports bitprism's numeric code.
 """
 
 from __future__ import annotations
@@ -71,8 +72,9 @@ def test_encode_nearest_even_matches_library(name):
         assert all(L.is_nan(int(c)) for c in lib[nan_in])
     else:
         assert np.array_equal(mine[~nan_in], lib[~nan_in])
-        # Documented exception (reference-values.md §8.1/§11.4, ml_dtypes mxfloat.h): ml_dtypes
-        # maps +NaN to -0 and -NaN to +0; we keep the input's sign bit on the zero.
+        # Documented exception (comment in ml_dtypes include/mxfloat.h: NaN conversion is
+        # implementation-defined by OCP MX v1.0; behaviour from library): ml_dtypes maps +NaN
+        # to -0 and -NaN to +0; we keep the input's sign bit on the zero.
         assert np.array_equal(mine[nan_in], lib[nan_in] ^ L.sign_bit)
 
 
@@ -112,7 +114,7 @@ def test_directed_zero_signs_and_overflow_by_hand():
     assert O.encode(big, L, O.RTP) == 0x7C00 and O.encode(-big, L, O.RTP) == 0xFBFF
     assert O.encode(big, L, O.RTN) == 0x7BFF and O.encode(-big, L, O.RTN) == 0xFC00
     assert O.encode(big, L, O.RNE, "saturate") == 0x7BFF
-    # 65520 is the §4.3.1 overflow threshold 2^15 (2 - 2^-11) (reference-values.md §1.2)
+    # 65520 is the IEEE 754-2008 §4.3.1 overflow threshold 2^15 (2 - 2^-11)
     assert O.encode(65520, L) == 0x7C00 and O.encode(Fraction(65520) - Fraction(1, 10**9), L) \
         == 0x7BFF
     # zero results keep the input's sign; RTP of a tiny negative is -0, RTN of tiny positive +0
@@ -122,10 +124,11 @@ def test_directed_zero_signs_and_overflow_by_hand():
 
 
 def test_tf32_oracle_matches_integer_recipes():
-    # TF32 = float32 with the low 13 fraction bits removed (reference-values.md §5.2). On the
-    # float32 bit pattern b (finite inputs): RTZ = b >> 13; RNA = (b + 0x1000) >> 13;
-    # RNE = (b + 0xFFF + bit13(b)) >> 13 (the Intel SDM VCVTNEPS2BF16 recipe, §5.1, with 13
-    # instead of 16 dropped bits). A carry into the all-ones exponent yields the Inf pattern.
+    # TF32 = float32 with the low 13 fraction bits removed (RISC-V BF16 chapter TF32 table;
+    # TensorFlow TF32 RFC). On the float32 bit pattern b (finite inputs): RTZ = b >> 13;
+    # RNA = (b + 0x1000) >> 13; RNE = (b + 0xFFF + bit13(b)) >> 13 (the Intel SDM
+    # VCVTNEPS2BF16 recipe with 13 instead of 16 dropped bits). A carry into the all-ones
+    # exponent yields the Inf pattern.
     L = O.BUILTIN_LAYOUTS["tf32"]
     rng = np.random.default_rng(11)
     x32 = O.float32_patterns(rng, 6000)
@@ -147,7 +150,7 @@ def test_tf32_oracle_matches_integer_recipes():
 def test_oracle_ulp_is_library_spacing_below_max(name):
     # For 0 <= x < max, the Handbook ULP equals the gap to the next value above, which is
     # what numpy/ml_dtypes np.spacing measures (from library). Not at max: np.spacing is
-    # inf/NaN there (reference-values.md §1.4).
+    # inf/NaN there (from library: np.spacing(float16(65504)) is inf, not the ULP 32).
     L, dt = O.BUILTIN_LAYOUTS[name], O.library_dtype(name)
     rng = np.random.default_rng(5)
     mags = sorted(set(O._mag_pairs(L, rng, 500)))
@@ -161,7 +164,8 @@ def test_oracle_ulp_is_library_spacing_below_max(name):
 @pytest.mark.parametrize(
     "name, x, p",
     [
-        # reference-values.md §7 (from library arithmetic)
+        # up-probabilities of stochastic rounding (Higham & Pranesh 2019, chop round = 5;
+        # values from library arithmetic)
         ("float16", 1 + Fraction(1, 2**12), Fraction(1, 4)),
         ("bfloat16", 1 + Fraction(1, 2**10), Fraction(1, 8)),
         ("float8_e4m3fn", Fraction(103125, 100000), Fraction(1, 4)),
@@ -172,7 +176,7 @@ def test_oracle_stochastic_probability(name, x, p):
     L = O.BUILTIN_LAYOUTS[name]
     down, up, prob = O.stochastic(x, L)
     assert prob == p
-    # E[SR(x)] = x exactly (Gupta et al. 2015 §3; reference-values.md §7)
+    # E[SR(x)] = x exactly (Gupta et al., ICML 2015, §3: unbiased stochastic rounding)
     assert (1 - prob) * L.value(down) + prob * L.value(up) == x
 
 
@@ -182,7 +186,7 @@ def test_oracle_special_semantics():
     assert O.encode(0.0, e8m0) == 0xFF and O.encode(-0.0, e8m0) == 0xFF
     for r in O.DETERMINISTIC_ROUNDINGS:
         assert O.encode(2.0**-130, e8m0, r) == 0x00
-    assert O.encode(3.0, e8m0) == 0x81  # ties away: 3 -> 4 (ml_dtypes 0.7, §8.1)
+    assert O.encode(3.0, e8m0) == 0x81  # ties away: 3 -> 4 (ml_dtypes 0.7, from library)
     e5m3 = O.BUILTIN_LAYOUTS["float8_e5m3fnu"]
     assert O.encode(-1e-30, e5m3) == 0xFF and O.encode(-0.0, e5m3) == 0x00
     fnuz = O.BUILTIN_LAYOUTS["float8_e4m3fnuz"]

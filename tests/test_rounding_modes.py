@@ -3,9 +3,10 @@
 Libraries implement only roundTiesToEven with their own overflow convention, so here the
 expected codes come from tests/oracle.py (exact Fractions and integers, itself checked against
 ml_dtypes in test_oracle.py). Rounding names: IEEE 754-2008 §4.3; overflow after rounding with
-an unbounded exponent: §7.4; stochastic rounding: reference-values.md §7 (Gupta et al. 2015 §3;
-Higham & Pranesh 2019 chop option 5); SAT/NONSAT: OCP OFP8 rev 1.0 as tabulated on the ONNX
-float8 page (reference-values.md §2.2).
+an unbounded exponent: §7.4; stochastic rounding: Gupta et al., ICML 2015, §3 (unbiasedness
+confirmed in text via a public summary; their exact formula from memory) and Higham & Pranesh,
+SIAM J. Sci. Comput. 2019, chop option round = 5; SAT/NONSAT: OCP OFP8 rev 1.0 as tabulated
+on the ONNX float8 page (OFP8 "Table 3" from memory).
 """
 
 from __future__ import annotations
@@ -139,9 +140,10 @@ def test_exact_input_is_not_rounded_through_float64():
     assert bitprism.encode(float(x), "float16") == 0x3C00
 
 
-# ----- §2.2 SAT vs NONSAT (OCP OFP8 rev 1.0, via the ONNX float8 page tables) -----------------------
+# ----- SAT vs NONSAT (OCP OFP8 rev 1.0, via the ONNX float8 page tables) --------------------------
 # NONSAT = overflow "standard"; SAT = overflow "saturate"; rounding RNE in both. "nan" = a NaN
-# code of that format with the given sign. Confirmed in text (reference-values.md §2.2).
+# code of that format with the given sign. Confirmed in text (the ONNX float8 page tables for
+# E4M3FN / E5M2).
 OFP8_TABLE = [
     # input, E4M3 SAT, E4M3 NONSAT, E5M2 SAT, E5M2 NONSAT
     (math.inf, 0x7E, 0x7F, 0x7B, 0x7C),
@@ -176,13 +178,13 @@ def test_ofp8_nan_stays_nan(name, overflow):
         assert L.is_nan(code) and L.is_negative(code) == (math.copysign(1, x) < 0)
 
 
-# ----- stochastic rounding (reference-values.md §7) --------------------------------------------------
+# ----- stochastic rounding (Gupta et al. 2015 §3; Higham & Pranesh 2019 chop) ---------------------
 N_DRAWS = 200_000
 
 
 @pytest.mark.parametrize(
     "name, x, down, up, p",
-    [  # §7 check values (from library arithmetic); E[SR(x)] = x in every case
+    [  # check values from library arithmetic; E[SR(x)] = x in every case
         ("float16", 1 + 2.0**-12, 1.0, 1 + 2.0**-10, 0.25),
         ("bfloat16", 1 + 2.0**-10, 1.0, 1 + 2.0**-7, 0.125),
         ("float8_e4m3fn", 1.03125, 1.0, 1.125, 0.25),
@@ -196,9 +198,10 @@ def test_stochastic_probability(name, x, down, up, p):
 @pytest.mark.parametrize("dtype", [np.float32, np.float64], ids=["f32", "f64"])
 @pytest.mark.parametrize(
     "name, x, down, up, p",
-    [  # subnormal and underflow range: the same Higham-Pranesh definition (§7), where the
-       # gap is the subnormal step 2^(emin - t) (fp16: 2^-24, IEEE 754-2008 Table 3.5;
-       # E4M3: 2^-9, FP8 paper Table 1); probabilities from library arithmetic (fractions)
+    [  # subnormal and underflow range: the same Higham-Pranesh definition (chop round = 5),
+       # where the gap is the subnormal step 2^(emin - t) (fp16: 2^-24, IEEE 754-2008
+       # Table 3.5; E4M3: 2^-9, FP8 paper Table 1); probabilities from library arithmetic
+       # (fractions)
         ("float16", 1.25 * 2.0**-24, 2.0**-24, 2.0**-23, 0.25),
         ("float16", 2.0**-26, 0.0, 2.0**-24, 0.25),
         ("float16", 3.5 * 2.0**-24, 3 * 2.0**-24, 4 * 2.0**-24, 0.5),
@@ -255,7 +258,7 @@ def test_stochastic_picks_a_neighbour_without_bias(name, overflow, subnormals):
 
 
 def test_stochastic_seed_reproducible():
-    x = np.full(1000, 2.5)  # FP4: 2 or 3 with probability 1/2 each (§7)
+    x = np.full(1000, 2.5)  # FP4: 2 or 3 with probability 1/2 each (from library arithmetic)
     a = encode(x, "float4_e2m1fn", rounding="stochastic", seed=1)
     b = encode(x, "float4_e2m1fn", rounding="stochastic", seed=1)
     c = encode(x, "float4_e2m1fn", rounding="stochastic", seed=2)
