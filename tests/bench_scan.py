@@ -39,8 +39,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "widgets"))
 
-from bitprism.tensors import pattern_counts, scan as scan_module  # noqa: E402
-from bitprism.tensors.scan import scan  # noqa: E402
+from bitprism.tensors.scan import ScanTuning, scan  # noqa: E402
+from bitprism.tensors.scan.compiled.jit import available as compiled_available  # noqa: E402
 
 FORMATS = (
     "bfloat16",
@@ -104,33 +104,19 @@ def peak_extra(fn) -> int:
     return peak - base
 
 
-class patched:
-    """Set module attributes for the duration of a ``with`` block (benchmark variants)."""
-
-    def __init__(self, module, **values) -> None:
-        self.module, self.values, self.saved = module, values, {}
-
-    def __enter__(self) -> None:
-        for k, v in self.values.items():
-            self.saved[k] = getattr(self.module, k)
-            setattr(self.module, k, v)
-
-    def __exit__(self, *exc) -> None:
-        for k, v in self.saved.items():
-            setattr(self.module, k, v)
+VARIANTS = {
+    "counts": ScanTuning(),
+    "one thread": ScanTuning(threads=1),
+    "exponents": ScanTuning(),
+    "numpy": ScanTuning(compiled=False),  # as without numba installed
+}
 
 
 def counts_variant(run, variant: str) -> float:
     """Best of three counts-only scans in one configuration."""
-    if variant == "one thread":
-        ctx = patched(scan_module, MAX_THREADS=1)
-    elif variant == "numpy":
-        ctx = patched(pattern_counts, _kernels=lambda: None)  # as without numba installed
-    else:
-        ctx = patched(scan_module)
     exps = variant == "exponents"
-    with ctx:
-        return min(timed(lambda: run(quantiles=False, exponents=exps)) for _ in range(3))
+    tuning = VARIANTS[variant]
+    return min(timed(lambda: run(quantiles=False, exponents=exps, tuning=tuning)) for _ in range(3))
 
 
 def halves_side_by_side(x: np.ndarray) -> tuple[float, float]:
@@ -139,7 +125,8 @@ def halves_side_by_side(x: np.ndarray) -> tuple[float, float]:
     decides what a second thread gains (on some virtual machines two cores share vector units
     at times)."""
     halves = (x[: x.size // 2], x[x.size // 2 :])
-    one = lambda part: scan(part, FORMATS, progress=False, quantiles=False)  # noqa: E731
+    one = lambda part: scan(part, FORMATS, progress=False, quantiles=False,  # noqa: E731
+                            tuning=ScanTuning(threads=1))
 
     def pair() -> None:
         worker = threading.Thread(target=one, args=(halves[1],))
@@ -147,8 +134,7 @@ def halves_side_by_side(x: np.ndarray) -> tuple[float, float]:
         one(halves[0])
         worker.join()
 
-    with patched(scan_module, MAX_THREADS=1):
-        return min(timed(lambda: one(halves[0])) for _ in range(3)), min(timed(pair) for _ in range(3))
+    return min(timed(lambda: one(halves[0])) for _ in range(3)), min(timed(pair) for _ in range(3))
 
 
 def main() -> None:
@@ -164,7 +150,8 @@ def main() -> None:
 
     variants = ("counts", "one thread", "exponents", "numpy")
     runs: dict[str, list[float]] = {k: [] for k in ("base", "exact", "hist", "max", "half", "pair") + variants}
-    sides = pattern_counts.compiled_available() and scan_module._threads() >= 2
+    threads = ScanTuning().worker_threads()
+    sides = compiled_available() and threads >= 2
     run(quantiles=False)  # compile the counting kernel (numba caches it on disk) before timing
     for _ in range(args.repeat):  # interleaved rounds: each ratio is taken within one round
         runs["base"].append(timed(lambda: baseline(x)))
@@ -184,8 +171,8 @@ def main() -> None:
     print(f"timings over {args.repeat} interleaved rounds (best time; ratio = median of per-round ratios)")
     print(f"  baseline (ml_dtypes astype + counts + np.quantile): {min(runs['base']):8.3f} s")
     print(f"  one streaming pass x.max():                        {min(runs['max']):8.4f} s")
-    print(f"  counting kernel: {'numba' if pattern_counts.compiled_available() else 'numpy (numba not installed)'}, "
-          f"{scan_module._threads()} thread(s)")
+    print(f"  counting kernel: {'numba' if compiled_available() else 'numpy (numba not installed)'}, "
+          f"{threads} thread(s)")
     rows = (
         ("scan, exact quantiles", "exact", "base", 0.5),
         ("scan, histogram quantiles", "hist", "base", 0.25),

@@ -14,14 +14,10 @@ import pytest
 
 from bitprism.errors import BitprismError
 from bitprism.formats import Format
-from bitprism.ui import case_file
-from bitprism.ui.case_file import (
-    CASE_SCHEMA,
-    MAX_CASE_BYTES,
-    check_window_size,
-    code_to_hex,
-    open_case,
-)
+from bitprism.ui import case_codecs, case_envelope
+from bitprism.ui.case_codecs import check_window_size, code_to_hex
+from bitprism.ui.case_envelope import CASE_SCHEMA, MAX_CASE_BYTES
+from bitprism.ui.case_file import open_case
 from bitprism.ui.prism import Prism
 
 E3M3 = Format("e3m3", 3, 3, specials="fn")  # a 7-bit layout of our own
@@ -216,7 +212,7 @@ BAD = [
     ("state.codes", ["0x0"], r"state\.codes: one bit pattern per format expected \(3\), got 1"),
     ("state.colour", "red", r"state\.colour: unknown field"),
     ("note", ["x"], r"note: expected a string"),
-    ("note", "x" * (case_file.MAX_NOTE_CHARS + 1), r"note: text longer than"),
+    ("note", "x" * (case_codecs.MAX_NOTE_CHARS + 1), r"note: text longer than"),
     ("kind", "spectrum", r"kind: must be one of 'prism', 'tensor_prism'"),
     ("versions", {"bitprism": 1}, r"versions\.bitprism: expected a string"),
     ("state", [], r"state: expected an object"),
@@ -345,7 +341,7 @@ def test_migration_from_schema_0(tmp_path: Path) -> None:
     assert q.rounding == "roundTowardPositive" and q.overflow == "saturate"
     assert q._case_note == "bf16 rounds 0.1 up"
     assert q.comparison.row("bfloat16").code == 0x3DCD  # 0.1 rounded up in bfloat16, ml_dtypes
-    migrated = case_file.read_case(tmp_path / "old.json")
+    migrated = case_envelope.read_case(tmp_path / "old.json")
     assert migrated["bitprism_case"] == 1 and migrated["versions"] == {"bitprism": "0.0.1"}
 
 
@@ -357,7 +353,7 @@ def test_migration_then_validation_names_field(tmp_path: Path) -> None:
 
 
 def test_every_older_schema_has_a_migration() -> None:
-    assert sorted(case_file._MIGRATIONS) == list(range(CASE_SCHEMA))
+    assert sorted(case_envelope._MIGRATIONS) == list(range(CASE_SCHEMA))
 
 
 def test_save_refuses_bad_note(tmp_path: Path) -> None:

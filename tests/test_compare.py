@@ -1,8 +1,8 @@
 """compare(), shortest/exact decimal text, and the text/HTML renderings of a Comparison.
 
-Reference values: reference-values.md, cited per check as "ref §n" (the §9
-cross-format error tables and the §1.4 worked encodings are "from library": the codes are
-recomputed here with ml_dtypes / numpy and the errors with fractions).
+Each check names its source. The cross-format error tables (x = 1/10, 1/3, π) and the IEEE 754
+binary16/binary32 worked encodings are "from library": the codes are recomputed here with
+ml_dtypes / numpy and the errors with fractions.
 """
 
 from __future__ import annotations
@@ -19,7 +19,8 @@ import pytest
 
 import oracle
 from bitprism.formats import FORMATS, Format, get_format
-from bitprism.numerics.compare import Comparison, compare, neighbour_codes, scalar_fields
+from bitprism.numerics.compare import Comparison, compare
+from bitprism.numerics.inspect import code_fields, neighbour_codes
 from bitprism.numerics.decimal_text import (
     abbreviate_decimal,
     exact_decimal,
@@ -44,13 +45,15 @@ def _library_code(x: float, name: str) -> int:
 
 
 def _library_ulp(value: Fraction, name: str) -> Fraction:
-    """ULP at a value from ml_dtypes.finfo (Handbook definition, ref §0 notation)."""
+    """ULP at a value from ml_dtypes.finfo (Goldberg / Handbook of Floating-Point Arithmetic
+    definition: ulp = 2^(max(e, emin) - p + 1))."""
     fi = ml_dtypes.finfo(FORMATS[name].dtype)
     e = max(int(np.floor(np.log2(float(abs(value))))) if value else fi.minexp, fi.minexp)
     return Fraction(2) ** (e - int(fi.nmant))
 
 
-# ref §9 "x = 1/10" and "x = 1/3" tables: error in ulps (ULP at the rounded value)
+# cross-format error tables for x = 1/10 and x = 1/3 (from library: ml_dtypes / numpy RNE,
+# exact fractions): error in ulps (ULP at the rounded value)
 TABLE_1_10 = {
     "float64": Fraction(2, 5), "float32": Fraction(1, 5), "float16": Fraction(-2, 5),
     "bfloat16": Fraction(1, 5), "float8_e4m3fn": Fraction(1, 5), "float8_e5m2": Fraction(-2, 5),
@@ -76,16 +79,18 @@ def test_cross_format_error_tables(text: str, x: Fraction, table: dict) -> None:
         stored = row.stored.value
         assert row.abs_error == stored - x
         assert row.rel_error == (stored - x) / x
-        assert row.ulp_error == table[name], name  # ref §9
+        assert row.ulp_error == table[name], name  # from library (tables above)
         if name != "float64":
             assert row.ulp == _library_ulp(stored, name) or stored == 0
     if text == "1/10":
-        assert c.row("float4_e2m1fn").underflowed  # ref §9: FP4 1/10 -> 0, -0.2 ulp (ulp 1/2)  # ref §1.4: float32 RNE(1/10) has relative error exactly 2^-26
+        assert c.row("float4_e2m1fn").underflowed  # FP4 1/10 -> 0, -0.2 ulp (ulp 1/2)
+        # binary32 RNE(1/10) = 0x3DCCCCCD has relative error exactly 2^-26 (from library)
         assert c.row("float32").rel_error == Fraction(2) ** -26
 
 
 def test_pi_row_against_float64_pi() -> None:
-    # ref §9 "x = π (float64 0x400921FB54442D18)": reference is float64 π, ulps to 6 digits
+    # cross-format error table for x = π (float64 0x400921FB54442D18; from library): the
+    # reference is float64 π, ulps to 6 digits
     c = compare(np.pi, formats=("float32", "float16", "bfloat16", "float8_e4m3fn", "float8_e5m2"))
     expect = {"float32": 0.366678, "float16": -0.495439, "bfloat16": -0.061930,
               "float8_e4m3fn": 0.433629, "float8_e5m2": -0.283185}
@@ -96,23 +101,24 @@ def test_pi_row_against_float64_pi() -> None:
 
 
 def test_worked_encodings_section_1_4() -> None:
-    # ref §1.4 binary32 0x3DCCCCCD = RNE(1/10), exact 0.100000001490116119384765625
+    # binary32 0x3DCCCCCD = RNE(1/10), exact 0.100000001490116119384765625 (from library)
     r = compare("0.1", formats=("float32",)).rows[0]
     assert r.code == 0x3DCCCCCD and r.exact == "0.100000001490116119384765625"
-    # ref §1.4 binary16 0x0001 = 2^-24, exact decimal 0.000000059604644775390625
+    # binary16 0x0001 = 2^-24, exact decimal 0.000000059604644775390625 (from library)
     r = compare("2**-24", formats=("float16",)).rows[0]
     assert r.code == 0x0001 and Decimal(r.exact) == Decimal("0.000000059604644775390625")
     assert r.subnormal and r.fields.kind == CodeClass.SUBNORMAL
-    # ref §1.4 binary16 0x7BFF = 65504; its ULP is 32 (not np.spacing's inf)
+    # binary16 0x7BFF = 65504; its Handbook ULP is 32 (np.spacing gives inf; from library)
     r = compare("65504", formats=("float16",)).rows[0]
     assert r.code == 0x7BFF and r.ulp == 32 and r.next_up is not None and r.next_up.code == 0x7C00
-    # ref §1.4 integer gaps: float16(2049) -> 2048 (tie to even), float16(2051) -> 2052
+    # integer gaps (from library, numpy): float16(2049) -> 2048 (tie to even), 2051 -> 2052
     assert compare("2049", formats=("float16",)).rows[0].shortest == "2048.0"
     assert compare("2051", formats=("float16",)).rows[0].shortest == "2052.0"
 
 
 def test_double_rounding_via_float32() -> None:
-    # ref §8.1: 1 + 2^-8 + 2^-30 -> bf16 directly 1.0078125, through float32 first 1.0
+    # ml_dtypes 0.7 (from library): 1 + 2^-8 + 2^-30 -> bf16 directly 1.0078125, through
+    # float32 first 1.0
     direct = compare("1 + 2**-8 + 2**-30", formats=("bfloat16",))
     via = compare("1 + 2**-8 + 2**-30", formats=("bfloat16",), via="float32")
     assert direct.rows[0].stored.value == Fraction(129, 128)
@@ -141,7 +147,7 @@ def test_flags() -> None:
 
 def test_rounding_options_and_stochastic_seed() -> None:
     rz = compare("0.1", formats=("bfloat16",), rounding="roundTowardZero").rows[0]
-    assert rz.code == 0x3DCC  # truncation of 0x3DCCCCCD (ref §0: truncation = roundTowardZero)
+    assert rz.code == 0x3DCC  # truncation of 0x3DCCCCCD (common practice: truncation = RTZ)
     a = compare("0.1", formats=("float8_e4m3fn", "float16"), rounding="stochastic", seed=7)
     b = compare("0.1", formats=("float16",), rounding="stochastic", seed=7)
     assert a.row("float16").code == b.row("float16").code  # independent of the other formats
@@ -153,7 +159,7 @@ def test_neighbours_and_fields_consistent(name: str) -> None:
     rng = random.Random(name)
     codes = range(1 << fmt.bits) if fmt.bits <= 8 else [rng.getrandbits(fmt.bits) for _ in range(300)]
     for code in codes:
-        assert scalar_fields(code, fmt) == fields(code, fmt)
+        assert code_fields(code, fmt) == fields(code, fmt)
         down, up = neighbour_codes(code, fmt)
         if fmt.classify(code) == "nan":
             assert down is None and up is None
@@ -164,6 +170,19 @@ def test_neighbours_and_fields_consistent(name: str) -> None:
                 continue
             w = fmt.code_value(n)
             assert (w > v) if bigger else (w < v)
+
+
+@pytest.mark.parametrize("name", sorted(n for n, f in FORMATS.items() if f.bits <= 16), ids=str)
+def test_scalar_fields_equal_vectorized_on_every_code(name: str) -> None:
+    """The integer twin (one code at a time) and the array path agree on every code."""
+    fmt = FORMATS[name]
+    codes = np.arange(1 << fmt.bits, dtype=np.uint64)
+    vec = fields(codes, fmt)
+    for code in range(1 << fmt.bits):
+        one = code_fields(code, fmt)
+        got = (one.sign, one.exponent, one.significand, int(one.kind), one.payload)
+        want = tuple(int(a[code]) for a in (vec.sign, vec.exponent, vec.significand, vec.kind, vec.payload))
+        assert got == want, (name, hex(code))
 
 
 def test_neighbours_match_numpy_nextafter_float16() -> None:
@@ -244,7 +263,7 @@ def test_shortest_is_unique_and_minimal(name: str) -> None:
 
 
 def test_exact_decimal() -> None:
-    # ref §1.4 binary32 0x00000001 = 2^-149, 105 significant digits
+    # binary32 0x00000001 = 2^-149, 105 significant digits (from library)
     full = exact_decimal(Fraction(1, 2**149))
     assert full.startswith("1.40129846432481707092372958328991613128026194187651577175706828")
     assert full.endswith("e-45")
@@ -254,7 +273,7 @@ def test_exact_decimal() -> None:
     short = abbreviate_decimal(full, 12)
     assert short == "1.40129846432…e-45 (105 digits)"
     assert exact_decimal(Fraction(1, 2**149), max_digits=12) == short
-    assert exact_decimal(Fraction(819, 8192)) == "0.0999755859375"  # ref §1.4 0x2E66
+    assert exact_decimal(Fraction(819, 8192)) == "0.0999755859375"  # binary16 0x2E66, from library
     assert exact_decimal(Fraction(-2)) == "-2.0"
     assert exact_decimal(Fraction(1, 3)).endswith("…")
 
@@ -270,7 +289,7 @@ def test_exact_text_parses_back(x: object) -> None:
 
 # ----- renderings -------------------------------------------------------------------------------
 def test_text_table_exact_at_fixed_width() -> None:
-    # stored values shown exactly when short: E4M3 0x1D = 13/128 = 0.1015625 (ref §9)
+    # stored values shown exactly when short: E4M3 0x1D = 13/128 = 0.1015625 (from library)
     c = compare("0.1", formats=("float8_e4m3fn", "float4_e2m1fn"))
     expected = "\n".join([
         "input 0.1  = 0.1",

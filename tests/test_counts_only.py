@@ -1,5 +1,5 @@
-"""Tests of the counts-only scan path (``tensors.counts_only``) and its counting kernel
-(``tensors.pattern_counts``).
+"""Tests of the counts-only scan path (``tensors.scan.counts_only``) and its counting kernel
+(``tensors.scan.compiled.pattern_counts``).
 
 The kernel and its numpy fallback are checked against plain Python integer counts on every
 kind of IEEE pattern; the counts-only scan against the general scan path (the block scan that
@@ -17,16 +17,17 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-import bitprism.tensors.counts_only as counts_only
-import bitprism.tensors.pattern_counts as pc
-import bitprism.tensors.scan as scan_mod
+import bitprism.tensors.scan.compiled.pattern_counts as pc
+import bitprism.tensors.scan.counts_only as counts_only
 from bitprism.errors import BitprismError
 from bitprism.numerics.options import CastOptions
-from bitprism.tensors.scan import scan
+from bitprism.tensors.scan import ScanTuning, scan
+from bitprism.tensors.scan.compiled.jit import available as compiled_available
+from bitprism.tensors.scan.plan import ScanPlan, resolve_entries
 from test_scan import wide_data
 
 FORMATS = ("bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float6_e3m2fn", "float4_e2m1fn")
-needs_numba = pytest.mark.skipif(not pc.compiled_available(), reason="numba not installed")
+needs_numba = pytest.mark.skipif(not compiled_available(), reason="numba not installed")
 
 # IEEE 754-2008 §3.4 binary32 / binary64 encodings (common practice): sign, biased exponent,
 # trailing significand.
@@ -73,7 +74,7 @@ def check_counts(bits: np.ndarray, f: dict, cuts: list[int], compiled: bool) -> 
 @pytest.mark.parametrize("n", [1, 7, pc.CHUNK - 1, pc.CHUNK, pc.CHUNK + 1, 2 * pc.CHUNK + 900])
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 def test_block_counts_on_every_kind_of_pattern(f: dict, n: int, compiled: bool) -> None:
-    if compiled and not pc.compiled_available():
+    if compiled and not compiled_available():
         pytest.skip("numba not installed")
     rng = np.random.default_rng(n)
     specials = special_patterns(f)
@@ -195,7 +196,7 @@ def test_block_counts_refuses_bad_cuts() -> None:
 
 @pytest.mark.parametrize("compiled", [True, False], ids=["numba", "numpy"])
 def test_first_positions(compiled: bool) -> None:
-    if compiled and not pc.compiled_available():
+    if compiled and not compiled_available():
         pytest.skip("numba not installed")
     rng = np.random.default_rng(3)
     bits = rng.integers(0, 2**32, 10000, dtype=np.uint32)
@@ -213,7 +214,7 @@ def test_range_positions(compiled: bool) -> None:
     """Several magnitude ranges at once, reading only the chunks whose counts (as the kernel
     keeps them) say they hold some: common ranges, rare ones spread over chunks, an empty one,
     and one asked for nothing."""
-    if compiled and not pc.compiled_available():
+    if compiled and not compiled_available():
         pytest.skip("numba not installed")
     rng = np.random.default_rng(4)
     bits = rng.integers(0, 2**32, 3 * pc.CHUNK + 100, dtype=np.uint32)
@@ -265,11 +266,10 @@ def narrow(x: np.ndarray, dtype) -> np.ndarray:
         return x.astype(dtype)
 
 
-def general(monkeypatch: pytest.MonkeyPatch, *args, **kw):
-    """The same scan on the general block path (the counts-only path switched off)."""
-    with monkeypatch.context() as m:
-        m.setattr(counts_only, "eligible", lambda spec: False)
-        return scan(*args, **kw)
+def general(*args, **kw):
+    """The same scan on the general block path (the compiled loops, and so the counts-only
+    path, switched off)."""
+    return scan(*args, **kw, tuning=ScanTuning(compiled=False))
 
 
 def assert_same(a, b, formats) -> None:
@@ -330,39 +330,34 @@ CASES = [
 
 @pytest.mark.parametrize("exponents", [False, True], ids=["no-exponents", "exponents"])
 @pytest.mark.parametrize("name,make,kw", CASES, ids=[c[0] for c in CASES])
-def test_counts_only_equals_general_path(monkeypatch, name, make, kw, exponents) -> None:
+def test_counts_only_equals_general_path(name, make, kw, exponents) -> None:
     x = make()
     fast = scan(x, FORMATS, quantiles=False, exponents=exponents, progress=False, **kw)
-    ref = general(monkeypatch, x, FORMATS, quantiles=False, exponents=exponents, progress=False, **kw)
+    ref = general(x, FORMATS, quantiles=False, exponents=exponents, progress=False, **kw)
     assert fast.histogram.collected is exponents
     assert_same(fast, ref, FORMATS)
 
 
-def test_counts_only_without_numba_and_on_threads(monkeypatch) -> None:
+def test_counts_only_without_numba_and_on_threads() -> None:
     """Without numba the general path runs (and leaves the exponents out all the same); many
     small blocks on worker threads give the same result as one pass."""
     x = wide(200_000, 10)
-    ref = general(monkeypatch, x, FORMATS, quantiles=False, progress=False)
-    with monkeypatch.context() as m:
-        m.setattr(pc, "_kernels", lambda: None)
-        spec = scan_mod._Spec(scan_mod._resolve_entries(FORMATS, CastOptions()), CastOptions(),
-                              None, False, 10, False, True, None)
-        assert not counts_only.eligible(spec)
-        plain = scan(x, FORMATS, quantiles=False, progress=False)
-        assert_same(plain, ref, FORMATS)
-        assert not plain.histogram.collected
-    if pc.compiled_available():
-        assert counts_only.eligible(spec)
-        with monkeypatch.context() as m:
-            m.setattr(scan_mod, "COUNT_BLOCK", 1 << 14)
-            m.setattr(scan_mod, "MAX_THREADS", 3)
-            m.setattr(counts_only, "COMPILED_MIN", 1 << 10)
-            m.setattr(counts_only, "PIECE", 1 << 12)
-            assert scan_mod._threads() > 1 or pytest.skip("one core: no worker threads")
-            assert_same(scan(x, FORMATS, quantiles=False, progress=False), ref, FORMATS)
-            x16 = narrow(x, np.float16)  # converted in pieces inside each block
-            ref16 = general(monkeypatch, x16, FORMATS, quantiles=False, progress=False)
-            assert_same(scan(x16, FORMATS, quantiles=False, progress=False), ref16, FORMATS)
+    ref = scan(x, FORMATS, quantiles=False, progress=False, tuning=ScanTuning(compiled=False, threads=1))
+    entries = resolve_entries(FORMATS, CastOptions())
+    without = ScanPlan(entries, CastOptions(), None, False, 10, False, True, tuning=ScanTuning(compiled=False))
+    assert not counts_only.eligible(without)
+    plain = general(x, FORMATS, quantiles=False, progress=False)
+    assert_same(plain, ref, FORMATS)
+    assert not plain.histogram.collected
+    if compiled_available():
+        assert counts_only.eligible(ScanPlan(entries, CastOptions(), None, False, 10, False, True))
+        # small blocks on three threads, converted in small pieces inside each block
+        small = ScanTuning(count_block=1 << 14, count_block_min=1, threads=3, compiled_min=1 << 10,
+                           convert_piece=1 << 12)
+        assert_same(scan(x, FORMATS, quantiles=False, progress=False, tuning=small), ref, FORMATS)
+        x16 = narrow(x, np.float16)
+        ref16 = general(x16, FORMATS, quantiles=False, progress=False)
+        assert_same(scan(x16, FORMATS, quantiles=False, progress=False, tuning=small), ref16, FORMATS)
 
 
 def test_counts_only_against_reference_casts() -> None:
@@ -385,7 +380,7 @@ def test_counts_only_against_reference_casts() -> None:
     assert res.min == -math.inf and res.max == math.inf
 
 
-def test_exponents_option(monkeypatch) -> None:
+def test_exponents_option() -> None:
     pytest.importorskip("matplotlib")
     x = narrow(wide(20000, 12), np.float16)  # float16 subnormals must be told either way
     off = scan(x, FORMATS, quantiles=False, progress=False)

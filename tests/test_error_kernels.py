@@ -10,15 +10,18 @@ import dataclasses
 import numpy as np
 import pytest
 
-import bitprism.tensors.error_kernels as ek
-import bitprism.tensors.scan as scan_mod
+import bitprism.tensors.scan.compiled.error_kernels as ek
+from bitprism.tensors.scan import ScanTuning
+from bitprism.tensors.scan.compiled.jit import available
+from bitprism.tensors.scan.measure import inv_ulp_table, measure_tables, nan_value_table
 from bitprism.formats import get_format
-from bitprism.tensors import sub_ranges
-from bitprism.tensors.partials import REL_BINS, rel_keys
+from bitprism.tensors.scan import sub_ranges
+from bitprism.tensors.scan.partials import REL_BINS, rel_keys
 from bitprism.tensors.scan import scan
 from test_scan import wide_data
 
-needs_numba = pytest.mark.skipif(not ek.available(), reason="numba not installed")
+needs_numba = pytest.mark.skipif(not available(), reason="numba not installed")
+NUMPY = ScanTuning(compiled=False)  # the numpy twins of every compiled loop
 
 SMALL = ("bfloat16", "float16", "float8_e4m3fn", "float8_e4m3fnuz", "float8_e5m2fnuz", "float8_e5m2",
          "float6_e3m2fn", "float6_e2m3fn", "float4_e2m1fn", "float8_e8m0fnu")
@@ -35,8 +38,8 @@ def test_measure_codes_every_code(name: str, compact: bool) -> None:
     fmt = get_format(name)
     codes = np.arange(1 << fmt.bits, dtype=fmt.code_dtype)
     codes = np.concatenate([codes, codes[::-1], codes])
-    values = scan_mod._nan_value_table(fmt)
-    inv = scan_mod._inv_ulp_table(fmt)
+    values = nan_value_table(fmt)
+    inv = inv_ulp_table(fmt)
     rng = np.random.default_rng(fmt.bits)
     idx = codes.astype(np.intp)
     with np.errstate(invalid="ignore", over="ignore"):
@@ -48,7 +51,7 @@ def test_measure_codes_every_code(name: str, compact: bool) -> None:
     err, rel, ue = np.empty(codes.size), np.empty(codes.size), np.empty(codes.size)
     bad = np.empty(codes.size, bool)
     top = (1 << fmt.t) - 1 if fmt.has_subnormals else 0
-    tables = scan_mod._measure_tables(fmt) if compact else (values, inv, (1 << fmt.bits) - 1, 0)
+    tables = measure_tables(fmt) if compact else (values, inv, (1 << fmt.bits) - 1, 0)
     got = ek.measure_codes(codes, x, den, *tables, fmt.magnitude_mask, top, err, rel, ue, bad)
     with np.errstate(invalid="ignore"):
         e = np.abs(np.take(values, idx) - x)
@@ -117,25 +120,21 @@ CASES = [
 @needs_numba
 @pytest.mark.parametrize("quantiles", ["exact", "histogram"])
 @pytest.mark.parametrize("name,make,kw", CASES, ids=[c[0] for c in CASES])
-def test_scan_same_with_and_without_kernels(monkeypatch, name, make, kw, quantiles) -> None:
+def test_scan_same_with_and_without_kernels(name, make, kw, quantiles) -> None:
     x = make()
     fast = scan(x, FORMATS, quantiles=quantiles, progress=False, **kw)
-    with monkeypatch.context() as m:
-        m.setattr(ek, "available", lambda: False)
-        ref = scan(x, FORMATS, quantiles=quantiles, progress=False, **kw)
+    ref = scan(x, FORMATS, quantiles=quantiles, progress=False, **kw, tuning=NUMPY)
     same_scan(fast, ref)
 
 
 @needs_numba
-def test_scan_same_with_block_formats(monkeypatch) -> None:
+def test_scan_same_with_block_formats() -> None:
     """Block-scaled formats (cast by a hook, buckets by the kernel) and a wide format."""
     mx = pytest.importorskip("bitprism.tensors.mx")
     formats = [mx.get_mx_format("mxfp8_e4m3"), mx.get_mx_format("mxfp4"), "float32", "float16"]
     x = wide_data(40_000, 6, low=-20, high=20)
     fast = scan(x, formats, progress=False)
-    with monkeypatch.context() as m:
-        m.setattr(ek, "available", lambda: False)
-        ref = scan(x, formats, progress=False)
+    ref = scan(x, formats, progress=False, tuning=NUMPY)
     same_scan(fast, ref)
 
 
@@ -214,15 +213,12 @@ def test_pick_holds_the_rank() -> None:
 
 
 @needs_numba
-def test_exact_quantiles_through_sub_ranges(monkeypatch) -> None:
+def test_exact_quantiles_through_sub_ranges() -> None:
     """Refinement passes that count sub-ranges before they collect values (forced by a small
     cap on collected values) give the same quantiles with and without the kernels."""
     x = wide_data(70_000, 8, low=-30, high=30)
-    with monkeypatch.context() as m:
-        m.setattr(scan_mod, "_CAP", 64)
-        fast = scan(x, FORMATS, progress=False)
-        m.setattr(ek, "available", lambda: False)
-        ref = scan(x, FORMATS, progress=False)
+    fast = scan(x, FORMATS, progress=False, tuning=ScanTuning(refine_cap=64))
+    ref = scan(x, FORMATS, progress=False, tuning=ScanTuning(refine_cap=64, compiled=False))
     same_scan(fast, ref)
     plain = scan(x, FORMATS, progress=False)  # quantiles are exact whatever the path
     for name in FORMATS:

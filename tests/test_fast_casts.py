@@ -13,15 +13,16 @@ import ml_dtypes
 import numpy as np
 import pytest
 
-import bitprism.tensors.fast_casts as fc
+import bitprism.tensors.scan.compiled.fast_casts as fc
 from bitprism.formats import get_format
 from bitprism.numerics.codes import encode
 from bitprism.numerics.options import CastOptions
 from bitprism.tensors.scan import scan
+from bitprism.tensors.scan.compiled.jit import available
 from test_error_kernels import same_scan
 from test_scan import wide_data
 
-needs_numba = pytest.mark.skipif(not fc.eligible(get_format("float16"), CastOptions()),
+needs_numba = pytest.mark.skipif(not (available() and fc.eligible(get_format("float16"), CastOptions())),
                                  reason="numba not installed")
 
 # low bits dropped by each cast: 16 for bfloat16, 13 for float16 normals (more below 2^-14)

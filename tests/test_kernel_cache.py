@@ -18,9 +18,10 @@ from pathlib import Path
 
 import pytest
 
-import bitprism.tensors.pattern_counts as pc
+import bitprism
+from bitprism.tensors.scan.compiled.jit import available
 
-needs_numba = pytest.mark.skipif(not pc.compiled_available(), reason="numba not installed")
+needs_numba = pytest.mark.skipif(not available(), reason="numba not installed")
 
 # Every compiled path of scan: counts only (float32 and float64 patterns, with and without the
 # exponent histogram), histogram and exact quantiles (the error kernels and the fast casts),
@@ -30,7 +31,7 @@ CHILD = r"""
 import json, numpy as np
 from numba.core.dispatcher import Dispatcher
 import bitprism as bp
-from bitprism.tensors import error_kernels, fast_casts, pattern_counts
+from bitprism.tensors.scan.compiled import error_kernels, fast_casts, pattern_counts
 
 x = np.resize(np.array([0.0, -0.0, 1e-45, 3e-39, 1.5, -2.75, 65520.0, 1e30, np.inf, -np.inf, np.nan],
                       np.float32), 1 << 16)  # above the size that stays on numpy
@@ -49,8 +50,15 @@ print(json.dumps({k.py_func.__qualname__ + str(i): sum(k.stats.cache_misses.valu
 """
 
 
-def cache_misses(cache_dir: Path) -> dict[str, int]:
-    env = dict(os.environ, NUMBA_CACHE_DIR=str(cache_dir), BITPRISM_NUMBA="1")
+def cache_misses(cache_dir: Path, user_wide: bool = False) -> dict[str, int]:
+    """Run CHILD with an empty cache folder: ``NUMBA_CACHE_DIR``, or (``user_wide``) the
+    per-user folder bitprism chooses under ``XDG_CACHE_HOME``."""
+    env = dict(os.environ, BITPRISM_NUMBA="1")
+    env.pop("NUMBA_CACHE_DIR", None)
+    if user_wide:
+        env["XDG_CACHE_HOME"] = str(cache_dir)
+    else:
+        env["NUMBA_CACHE_DIR"] = str(cache_dir)
     done = subprocess.run([sys.executable, "-c", CHILD], env=env, capture_output=True, text=True,
                           timeout=900)
     assert done.returncode == 0, done.stderr
@@ -63,4 +71,23 @@ def test_second_process_compiles_nothing(tmp_path: Path) -> None:
     assert sum(first.values()) > 0  # an empty cache folder: the first process compiles
     second = cache_misses(tmp_path)
     assert second.keys() == first.keys()
+    assert {k: n for k, n in second.items() if n} == {}
+
+
+def _package_cache_files() -> set[Path]:
+    root = Path(bitprism.__file__).parent
+    return {p for p in root.rglob("*") if p.suffix in (".nbi", ".nbc")}
+
+
+@needs_numba
+def test_cache_lives_outside_the_package(tmp_path: Path) -> None:
+    """Without NUMBA_CACHE_DIR the compiled loops are cached in the per-user folder
+    (XDG_CACHE_HOME/bitprism/numba here), never beside the package's source files, and a
+    second process finds them there."""
+    before = _package_cache_files()
+    first = cache_misses(tmp_path, user_wide=True)
+    assert sum(first.values()) > 0
+    assert any((tmp_path / "bitprism" / "numba").rglob("*.nbi"))
+    assert _package_cache_files() == before
+    second = cache_misses(tmp_path, user_wide=True)
     assert {k: n for k, n in second.items() if n} == {}

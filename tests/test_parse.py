@@ -24,7 +24,8 @@ from hypothesis import strategies as st
 from bitprism.errors import BitprismError, ParseError, UnsupportedInputError
 from bitprism.formats import FORMATS, get_format
 from bitprism.numerics.exact import MAGNITUDE_LIMIT, ExactValue
-from bitprism.numerics.parse import (
+from bitprism.numerics.exact_arithmetic import apply_operation
+from bitprism.numerics.expression import (
     MAX_DEPTH,
     MAX_LENGTH,
     MAX_LITERAL_DIGITS,
@@ -32,11 +33,9 @@ from bitprism.numerics.parse import (
     Binary,
     Number,
     Unary,
-    apply_operation,
-    parse,
-    parse_bits,
     parse_tree,
 )
+from bitprism.numerics.parse import parse, parse_bits
 
 
 def exact(text: str) -> Fraction:

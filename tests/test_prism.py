@@ -131,3 +131,19 @@ def test_callback_errors_reach_message_area() -> None:
     p.rounding_menu.value = "stochastic"
     p.seed_input.value = 3
     assert p.seed == 3 and p.message == ""
+
+
+def test_one_parse_per_enter(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Enter in the value box parses the text once; the validation and the refresh that
+    follow use the kept exact value (they parsed it again, three times in all, before)."""
+    import bitprism.numerics.parse as parse_module
+
+    p = Prism("0.1", formats=["float32", "bfloat16", "float16"])
+    calls: list[str] = []
+    real = parse_module.parse_tree
+    monkeypatch.setattr(parse_module, "parse_tree", lambda text: calls.append(text) or real(text))
+    p.submit_value(" 65504*2 ")
+    assert len(calls) == 1 and p.comparison.text == "65504*2"
+    assert p.comparison.row("float16").overflowed
+    p.rounding = "roundTowardZero"  # a new rounding: the same value, not parsed again
+    assert len(calls) == 1 and p.comparison.row("float16").code == 0x7BFF  # saturates to max

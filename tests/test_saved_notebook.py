@@ -13,7 +13,7 @@ from typing import Any
 import nbformat
 import pytest
 
-from bitprism.ui import case_file
+from bitprism.ui import snapshots
 from bitprism.ui.prism import Prism
 
 WIDGET_VIEW = "application/vnd.jupyter.widget-view+json"
@@ -57,7 +57,7 @@ def test_display_bundle_has_widget_view_text_and_snapshot(recorder: _Recorder) -
 def test_changes_are_throttled_with_a_final_update(
     recorder: _Recorder, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    monkeypatch.setattr(case_file, "SNAPSHOT_INTERVAL", 0.3)
+    monkeypatch.setattr(snapshots, "SNAPSHOT_INTERVAL", 0.3)
     p = Prism("0.1", formats=["float32", "float16"])
     p._ipython_display_()
     for v in ["0.2", "0.3", "0.4", "0.5"]:  # all within one interval of the display

@@ -21,11 +21,12 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-import bitprism.tensors.scan as scan_mod
+from bitprism.tensors.scan.block import scan_block
+from bitprism.tensors.scan.plan import Locator, ScanPlan, ScanTuning, resolve_entries
 from bitprism.errors import BitprismError
 from bitprism.formats import get_format
 from bitprism.numerics.options import CastOptions
-from bitprism.tensors.partials import ExactSum, compress_values
+from bitprism.tensors.scan.partials import ExactSum, compress_values
 from bitprism.tensors.scan import ScanResult, scan
 
 WITH_INF = ("bfloat16", "float16", "float8_e5m2")  # IEEE-style: overflow -> Inf
@@ -127,22 +128,20 @@ def test_histogram_quantiles_are_close_to_exact() -> None:
             assert v == pytest.approx(u, rel=2**-7)  # buckets are 2^-7 wide (scan docstring)
 
 
-def test_exact_two_pass_equals_numpy(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_exact_two_pass_equals_numpy() -> None:
     """Small blocks and a small keep limit force the histogram + second-pass path."""
-    monkeypatch.setattr(scan_mod, "BLOCK", 4096)
-    monkeypatch.setattr(scan_mod, "_SUB", 1024)
-    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 1000)
-    monkeypatch.setattr(scan_mod, "_CAP", 8)  # refine through sub-range counts, then values
+    # refine through sub-range counts, then values
+    tuning = ScanTuning(block=4096, piece=1024, keep_values=1000, refine_cap=8)
     rng = np.random.default_rng(5)
     x = rng.standard_normal(30000).astype(np.float32) * 100
     x[::31] = rng.standard_normal(x[::31].size) * 1e-6  # some underflow and subnormals
     tiny = (x * 1e-3).astype(np.float32)  # mostly flushed to zero in FP4: p50 is exactly 1
     for data in (x, tiny):
         for name in ("bfloat16", "float16", "float8_e4m3fn", "float4_e2m1fn"):
-            f = scan(data, [name], progress=False)[name]
+            f = scan(data, [name], progress=False, tuning=tuning)[name]
             rel, _ = rel_ref(data, cast_ref(data, name))
             assert (f.rel_error_p50, f.rel_error_p99) == tuple(np.quantile(rel, [0.5, 0.99]))
-    assert scan(tiny, ["float4_e2m1fn"], progress=False)["float4_e2m1fn"].rel_error_p50 == 1.0
+    assert scan(tiny, ["float4_e2m1fn"], progress=False, tuning=tuning)["float4_e2m1fn"].rel_error_p50 == 1.0
 
 
 # ----- published thresholds -----------------------------------------------------------------
@@ -152,7 +151,7 @@ def test_thresholds_match_published_values() -> None:
     res = scan(np.zeros(1, np.float32), ALL, progress=False, quantiles=False)
     # IEEE 754-2008 §4.3.1: binary16 overflows from 2^15*(2 - 2^-11) = 65520 (to nearest).
     assert res["float16"].overflow_from == 65520.0
-    # bfloat16 (p = 8): 2^127*(2 - 2^-8), float32 bits 0x7F7F8000 (reference-values §1.2).
+    # bfloat16 (p = 8): 2^127*(2 - 2^-8), float32 bits 0x7F7F8000 (same rule; from library).
     assert res["bfloat16"].overflow_from == 2.0**127 * (2 - 2.0**-8)
     # OFP8 rev 1.0 / FP8 paper Table 1: E4M3 max 448; 464 ties to 448 (even), above overflows.
     assert res["float8_e4m3fn"].overflow_from == np.nextafter(464.0, np.inf)
@@ -167,7 +166,7 @@ def test_thresholds_match_published_values() -> None:
 
 
 def test_fp16_boundaries_one_element_each() -> None:
-    # IEEE 754-2008 §4.3.1 threshold and the subnormal-boundary ties of reference-values §1.4.
+    # IEEE 754-2008 §4.3.1 threshold and the binary16 subnormal-boundary ties (from library).
     x = np.array([65519.99, 65520.0, 2.0**-25, 3 * 2.0**-26, 2.0**-24, 1.0], np.float64)
     f = scan(x, ["float16"], progress=False)["float16"]
     assert f.overflow == 1  # 65520 only
@@ -177,7 +176,7 @@ def test_fp16_boundaries_one_element_each() -> None:
 
 
 def test_ulp_error_against_fractions() -> None:
-    # float32(1/3) = 11184811/2^25 (reference-values §1.4) -> binary16 1365/4096, whose ULP is
+    # float32(1/3) = 11184811/2^25 (from library, numpy) -> binary16 1365/4096, whose ULP is
     # 2^-12 (binade [1/4, 1/2), t = 10); error in ULPs computed exactly with Fraction.
     x = np.array([np.float32(1 / 3)])
     f = scan(x, ["float16"], progress=False)["float16"]
@@ -236,8 +235,7 @@ def test_unsigned_format_counts_negatives_as_invalid() -> None:
 
 def _spec(fmts, mode="histogram", limit=5, keep=True):
     opts = CastOptions()
-    entries = scan_mod._resolve_entries(fmts, opts)
-    return scan_mod._Spec(entries, opts, None, mode, limit, keep, True, None)
+    return ScanPlan(resolve_entries(fmts, opts), opts, None, mode, limit, keep, True)
 
 
 def _same(a, b) -> None:
@@ -265,10 +263,11 @@ def _same(a, b) -> None:
 def test_merge_of_random_splits_equals_whole(cuts: list[int], order) -> None:
     x = wide_data(3000, seed=7)
     spec = _spec(("float16", "float8_e4m3fn", "float4_e2m1fn"))
-    whole = scan_mod._scan_block(x, scan_mod._Locator(0), spec, scan_mod._SUB)
+    piece = ScanTuning().piece
+    whole = scan_block(x, Locator(0), spec, piece)
     bounds = [0] + sorted(cuts) + [x.size]
     parts = [
-        scan_mod._scan_block(x[s:e], scan_mod._Locator(s), spec, scan_mod._SUB)
+        scan_block(x[s:e], Locator(s), spec, piece)
         for s, e in zip(bounds, bounds[1:])
     ]
     order.shuffle(parts)  # merges are commutative and associative
@@ -290,25 +289,23 @@ def test_exact_sum_is_exact_and_associative() -> None:
 # ----- input kinds -----------------------------------------------------------------------------
 
 
-def test_memmap_is_read_in_blocks(tmp_path, monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(scan_mod, "BLOCK", 5000)
+def test_memmap_is_read_in_blocks(tmp_path) -> None:
     x = wide_data(23456, seed=2).reshape(-1, 32)[:733]
     path = tmp_path / "t.npy"
     np.save(path, x)
     mm = np.load(path, mmap_mode="r")
-    a = scan(mm, ALL, progress=False)
-    b = scan(np.array(x), ALL, progress=False)
+    tuning = ScanTuning(block=5000)
+    a = scan(mm, ALL, progress=False, tuning=tuning)
+    b = scan(np.array(x), ALL, progress=False, tuning=tuning)
     assert a.formats == b.formats and a.histogram == b.histogram
     for kind in ("nan", "inf"):
         assert all(np.array_equal(u, v) for u, v in zip(a.where(kind), b.where(kind)))
 
 
-def test_multiblock_equals_single_block(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_multiblock_equals_single_block() -> None:
     x = wide_data(20000, seed=4).reshape(100, 200)
     one = scan(x, ALL, progress=False, quantiles="histogram")
-    monkeypatch.setattr(scan_mod, "BLOCK", 3000)
-    monkeypatch.setattr(scan_mod, "_SUB", 512)
-    many = scan(x, ALL, progress=False, quantiles="histogram")
+    many = scan(x, ALL, progress=False, quantiles="histogram", tuning=ScanTuning(block=3000, piece=512))
     for a, b in zip(one.formats, many.formats):
         assert (a.overflow, a.underflow, a.subnormal, a.exact, a.max_abs_error, a.rel_error_p50) == (
             b.overflow, b.underflow, b.subnormal, b.exact, b.max_abs_error, b.rel_error_p50
@@ -320,22 +317,16 @@ def test_multiblock_equals_single_block(monkeypatch: pytest.MonkeyPatch) -> None
 
 @pytest.mark.parametrize("mode,rounding", [("histogram", "roundTiesToEven"), ("exact", "roundTiesToEven"),
                                            ("exact", "stochastic"), (False, "roundTiesToEven")])
-def test_threads_equal_one_thread(monkeypatch: pytest.MonkeyPatch, mode, rounding) -> None:
+def test_threads_equal_one_thread(mode, rounding) -> None:
     """Blocks on worker threads (merged in order, floors from the blocks merged so far) give
     the same result as one thread, the second pass of exact quantiles included."""
     x = wide_data(30000, seed=5).reshape(150, 200)
-    monkeypatch.setattr(scan_mod, "BLOCK", 2500)
-    monkeypatch.setattr(scan_mod, "COUNT_BLOCK", 2500)  # counts only (with numba: threads)
-    monkeypatch.setattr(scan_mod.counts_only, "COMPILED_MIN", 256)
-    monkeypatch.setattr(scan_mod, "_SUB", 512)
-    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 1000)
-    monkeypatch.setattr(scan_mod, "_CAP", 64)
+    # small blocks (counts only with numba: one per thread), pieces and refinement ranges
+    small = dict(block=2500, count_block=2500, count_block_min=1, compiled_min=256, piece=512,
+                 keep_values=1000, refine_cap=64)
     kw = dict(quantiles=mode, rounding=rounding, seed=7, progress=False)
-    monkeypatch.setattr(scan_mod, "MAX_THREADS", 1)
-    one = scan(x, ALL, **kw)
-    monkeypatch.setattr(scan_mod, "MAX_THREADS", 3)
-    monkeypatch.setattr(scan_mod, "_threads", lambda: 3)  # threads even on a one-core machine
-    many = scan(x, ALL, **kw)
+    one = scan(x, ALL, **kw, tuning=ScanTuning(threads=1, **small))
+    many = scan(x, ALL, **kw, tuning=ScanTuning(threads=3, **small))  # even on a one-core machine
     assert one.formats == many.formats and one.histogram == many.histogram
     for name in ALL:
         for kind in ("overflow", "underflow", "subnormal", "largest_error"):
@@ -351,14 +342,14 @@ def test_scan_in_a_forked_child(tmp_path) -> None:
     script.write_text(
         "import os\n"
         "import numpy as np\n"
-        "from bitprism.tensors import scan as sm\n"
-        "sm._threads = lambda: 2  # threads even on a one-core machine\n"
+        "from bitprism.tensors.scan import ScanTuning, scan\n"
+        "two = ScanTuning(threads=2)  # threads even on a one-core machine\n"
         "x = np.random.default_rng(0).standard_normal(1 << 21).astype(np.float32)\n"
         "for q in (False, 'histogram'):\n"
-        "    r = sm.scan(x, quantiles=q, progress=False)\n"
+        "    r = scan(x, quantiles=q, progress=False, tuning=two)\n"
         "    pid = os.fork()\n"
         "    if pid == 0:\n"
-        "        os._exit(0 if sm.scan(x, quantiles=q, progress=False).formats == r.formats else 3)\n"
+        "        os._exit(0 if scan(x, quantiles=q, progress=False, tuning=two).formats == r.formats else 3)\n"
         "    assert os.waitstatus_to_exitcode(os.waitpid(pid, 0)[1]) == 0\n"
         "print('ok')\n"
     )
@@ -516,15 +507,14 @@ def test_dask_local_schedulers() -> None:
                 assert all(np.array_equal(u, v) for u, v in zip(got.where(kind, name), ref.where(kind, name)))
 
 
-def test_dask_two_pass_exact(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_dask_two_pass_exact() -> None:
     da = pytest.importorskip("dask.array")
     import dask
 
-    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 100)
-    monkeypatch.setattr(scan_mod, "_CAP", 8)
+    tuning = ScanTuning(keep_values=100, refine_cap=8)
     x = np.random.default_rng(15).standard_normal(5000).astype(np.float32)
     with dask.config.set(scheduler="synchronous"):
-        f = scan(da.from_array(x, chunks=700), ["float8_e5m2"], progress=False)["float8_e5m2"]
+        f = scan(da.from_array(x, chunks=700), ["float8_e5m2"], progress=False, tuning=tuning)["float8_e5m2"]
     rel, _ = rel_ref(x, cast_ref(x, "float8_e5m2"))
     assert (f.rel_error_p50, f.rel_error_p99) == tuple(np.quantile(rel, [0.5, 0.99]))
 
@@ -616,21 +606,17 @@ def test_html_escapes_names() -> None:
     assert "<b>x</b>" not in html and "&lt;b&gt;x&lt;/b&gt;" in html
 
 
-def test_progress_bar_on_large_input(monkeypatch: pytest.MonkeyPatch, capsys) -> None:
-    monkeypatch.setattr(scan_mod, "PROGRESS_MIN", 100)
-    monkeypatch.setattr(scan_mod, "BLOCK", 256)
-    scan(np.ones(1000, np.float32), ["float16"], progress=True)
+def test_progress_bar_on_large_input(capsys) -> None:
+    scan(np.ones(1000, np.float32), ["float16"], progress=True, tuning=ScanTuning(progress_min=100, block=256))
     assert "scan" in capsys.readouterr().err
 
 
-def test_progress_bar_counts_each_pass(monkeypatch: pytest.MonkeyPatch, capsys) -> None:
-    # exact quantiles of more than KEEP_VALUES elements take a second pass: the bar names it and
+def test_progress_bar_counts_each_pass(capsys) -> None:
+    # exact quantiles of more than keep_values elements take a second pass: the bar names it and
     # counts the tensor's 1000 elements again instead of showing a total of twice the tensor
-    monkeypatch.setattr(scan_mod, "PROGRESS_MIN", 100)
-    monkeypatch.setattr(scan_mod, "BLOCK", 256)
-    monkeypatch.setattr(scan_mod, "KEEP_VALUES", 10)
     x = np.random.default_rng(0).standard_normal(1000).astype(np.float32)
-    scan(x, ["float16"], progress=True, quantiles="exact")
+    scan(x, ["float16"], progress=True, quantiles="exact",
+         tuning=ScanTuning(progress_min=100, block=256, keep_values=10))
     err = capsys.readouterr().err
     assert "scan, pass 1" in err and "scan, pass 2" in err
     assert "/1.00k" in err and "/2.00k" not in err
@@ -696,3 +682,27 @@ def test_compress_values_matches_numpy_unique(parts_spec: list) -> None:
     expected = np.stack((uniq, np.bincount(inv.reshape(-1), weights=weights, minlength=uniq.size)))
     got = compress_values(parts)
     assert got.shape == expected.shape and np.array_equal(got, expected, equal_nan=True)
+
+
+def test_options_are_resolved_once_per_scan() -> None:
+    """A scan validates its options once and passes the object down: a fresh process scanning
+    3 values into 2 formats builds a handful of CastOptions (the thresholds' two variants per
+    format and sign), not one per rounded scalar (762 before the options were passed down)."""
+    code = (
+        "import numpy as np\n"
+        "from bitprism.numerics.options import CastOptions\n"
+        "import bitprism as bp\n"
+        "count = [0]\n"
+        "orig = CastOptions.__post_init__\n"
+        "def counting(self):\n"
+        "    count[0] += 1\n"
+        "    orig(self)\n"
+        "CastOptions.__post_init__ = counting\n"
+        "bp.scan(np.array([1.0, 2.0, 3.0]), ['float16', 'bfloat16'], progress=False)\n"
+        "first = count[0]\n"
+        "bp.scan(np.array([1.0, 2.0, 3.0]), ['float16', 'bfloat16'], progress=False, rounding='rtz')\n"
+        "print(first, count[0] - first)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    first, second = map(int, out.stdout.split())
+    assert first <= 8 and second <= 9, (first, second)

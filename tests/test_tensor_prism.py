@@ -33,7 +33,7 @@ def _tensor() -> np.ndarray:
 
 
 def _cell(tp: TensorPrism, i: int, j: int):
-    return tp._cells[i * tp.window.cols + j]
+    return tp._cell_grid.cells[i * tp.window.cols + j]
 
 
 def test_builds_grid_and_css_classes() -> None:
@@ -46,7 +46,7 @@ def test_builds_grid_and_css_classes() -> None:
     for kind in ("nan", "inf", "overflow", "underflow", "largest-error"):
         assert f"bitprism-next-{kind}" in tp.nav_buttons[f"next-{kind.replace('-', '_')}"]._dom_classes
         assert f"bitprism-prev-{kind}" in tp.nav_buttons[f"prev-{kind.replace('-', '_')}"]._dom_classes
-    cells = tp._cells[: 16 * 16]
+    cells = tp._cell_grid.cells[: 16 * 16]
     assert len(cells) == 256 and all("bitprism-cell" in c._dom_classes for c in cells)
     assert "bitprism-scan" in tp.summary_html.value  # the scan's HTML
     # every cell carries its exact value and bit pattern as text
@@ -79,7 +79,7 @@ def test_cast_view_marks_cells_like_ml_dtypes() -> None:
                 want = "rnd"
             assert label == want, (i, j, x[i, j], q[i, j], label)
     assert _cell(tp, 5, 5).description == "OVF" and _cell(tp, 6, 6).description == "→0"
-    assert _cell(tp, 5, 5).style is tp._styles["overflow"]
+    assert _cell(tp, 5, 5).style is tp._cell_grid.styles["overflow"]
     assert "overflows" in tp.legend_html.value and "underflows to zero" in tp.legend_html.value
 
 
@@ -232,10 +232,10 @@ def test_cell_updates_are_small_and_complete(monkeypatch: pytest.MonkeyPatch) ->
     a = (np.random.default_rng(0).standard_normal((64, 96)) * 100).astype(np.float32)  # invented
     tp = TensorPrism(a, formats=["bfloat16", "float16", "float8_e4m3fn"], rows=32, cols=32)
     other = TensorPrism(a[:4, :4], formats=FMTS)
-    ids = [s.model_id for s in tp._styles.values()] + [s.model_id for s in other._styles.values()]
+    ids = [s.model_id for t in (tp, other) for s in t._cell_grid.styles.values()]
     assert len(set(ids)) == len(ids) and all(len(i) < 32 for i in ids)
-    refs = {f"IPY_MODEL_{s.model_id}": s for s in tp._styles.values()}
-    cells = {id(c): c for c in tp._cells}
+    refs = {f"IPY_MODEL_{s.model_id}": s for s in tp._cell_grid.styles.values()}
+    cells = {id(c): c for c in tp._cell_grid.cells}
     for view in ("value", "class", "cast", "error", "compare"):
         tp.view = view
         tp.col_offset = 0

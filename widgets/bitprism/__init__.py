@@ -8,11 +8,12 @@ from __future__ import annotations
 
 from typing import Any
 
+from . import display as _display
 from ._version import __version__
 from .errors import BitprismError, ParseError, UnsupportedInputError
 from .formats import FORMATS, Format, get_format
 from .numerics.codes import cast, decode, encode
-from .numerics.exact import ExactValue
+from .numerics.exact import ExactValue, floor_log2
 from .numerics.inspect import CodeClass, Fields, fields, next_down, next_up, ulp, ulp_distance
 from .numerics.compare import Comparison, FormatRow, compare
 from .numerics.decimal_text import exact_decimal, shortest_decimal
@@ -23,7 +24,7 @@ from .tensors.adapters import as_array
 from .tensors.advisor import ScaleAdvice, suggest_scale
 from .tensors.files import open_tensor, open_tensors
 from .tensors.mx import MX_FORMATS, MXFormat, MXResult, decode_mx, get_mx_format, mx_quantize
-from .tensors.scan import ExponentHistogram, FormatScan, ScanQuantizer, ScanResult, scan
+from .tensors.scan import ExponentHistogram, FormatScan, ScanQuantizer, ScanResult, ScanTuning, scan
 
 __all__ = [
     "BitprismError",
@@ -48,6 +49,7 @@ __all__ = [
     "ScaleAdvice",
     "ScanQuantizer",
     "ScanResult",
+    "ScanTuning",
     "UnsupportedInputError",
     "__version__",
     "as_array",
@@ -59,6 +61,7 @@ __all__ = [
     "evaluate",
     "exact_decimal",
     "fields",
+    "floor_log2",
     "get_format",
     "get_mx_format",
     "mx_quantize",
@@ -83,6 +86,17 @@ _LAZY: dict[str, str] = {
     "open_case": ".ui.case_file",
     "range_chart": ".plots",
 }
+
+
+def _load_views(view: str) -> None:
+    """Import the layer that registers ``view`` functions with the display seam: results
+    know nothing of render or plots, and only the package root may import every layer."""
+    import importlib
+
+    importlib.import_module(".plots" if view == "plot" else ".render", __name__)
+
+
+_display.install_loader(_load_views)
 
 
 def __getattr__(name: str) -> Any:

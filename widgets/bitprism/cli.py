@@ -67,11 +67,13 @@ def _resolve_formats(text: str, allow_mx: bool) -> list[Any]:
         except BitprismError as exc:
             error = exc
         if allow_mx:
-            from .tensors.mx import MX_FORMATS, get_mx_format
+            from .tensors.scan import scan_format
 
-            if name.strip().lower().replace("-", "_") in MX_FORMATS:
-                out.append(get_mx_format(name))
+            try:
+                out.append(scan_format(name))  # the OCP MX block formats by name
                 continue
+            except BitprismError:
+                pass
         raise _UsageError(str(error).replace("\n", " "))
     return out
 
@@ -244,9 +246,7 @@ def _cmd_show(args: argparse.Namespace) -> int:
     formats = _resolve_formats(args.formats, allow_mx=False)
     text = args.value.strip()
     try:
-        comparison = compare(
-            text, formats, options.rounding, options.overflow, options.subnormals
-        )
+        comparison = compare(text, formats, options=options)
     except ParseError as exc:
         where = f"{exc.reason} (column {exc.column})"
         raise _UsageError(f"cannot read VALUE {text!r}: {where}") from exc
@@ -314,9 +314,7 @@ def _cmd_scan(args: argparse.Namespace) -> int:
         result = scan(
             arr,
             formats=formats,
-            rounding=options.rounding,
-            overflow=options.overflow,
-            subnormals=options.subnormals,
+            options=options,
             progress=not args.no_progress,
             quantiles=False if args.quantiles == "none" else args.quantiles,
         )
@@ -387,7 +385,7 @@ def _plain(value: Any) -> Any:
 
 def _counts(result: Any, names: list[str]) -> dict[str, dict[str, Any]]:
     """The counts ``names`` (``--fail-on`` conditions) of each format of a ``ScanResult``."""
-    return {row.format: {n: getattr(row, n) for n in names} for row in result.formats}
+    return {row.name: {n: getattr(row, n) for n in names} for row in result.formats}
 
 
 def _scan_summary(result: Any, formats: list[Any]) -> dict[str, dict[str, Any]]:
@@ -398,8 +396,8 @@ def _scan_summary(result: Any, formats: list[Any]) -> dict[str, dict[str, Any]]:
 
     out: dict[str, dict[str, Any]] = {}
     for row in result.formats:
-        out[row.format] = _plain(dataclasses.asdict(row))
-        out[row.format].pop("format", None)
+        fields = {f.name: getattr(row, f.name) for f in dataclasses.fields(row) if f.name != "format"}
+        out[row.name] = _plain(fields)
     return out
 
 

@@ -25,6 +25,7 @@ __all__ = [
     "FormatLike",
     "SPECIALS",
     "Specials",
+    "format_key",
     "get_format",
 ]
 
@@ -347,6 +348,10 @@ class Format:
     def __str__(self) -> str:
         return self.name
 
+    def __format__(self, spec: str) -> str:
+        """Formatted like its name, so ``f"{fmt:14}"`` pads it as it pads a string."""
+        return format(self.name, spec)
+
     def to_params(self) -> dict[str, Any]:
         """The free parameters, JSON-friendly (what a case file stores for a custom format)."""
         return {
@@ -466,12 +471,19 @@ def _by_dtype(spec: Any) -> Format | None:
     return None
 
 
+def format_key(name: str) -> str:
+    """The lookup key of a format name as a person writes it: case, surrounding spaces and
+    '-' against '_' do not matter ("Float8-E4M3FN" is float8_e4m3fn). The one place a name is
+    normalised; block-format names (``tensors.mx``) are looked up the same way."""
+    return name.strip().lower().replace("-", "_")
+
+
 def get_format(spec: FormatLike) -> Format:
     """Resolve a canonical name, an alias, a numpy/ml_dtypes dtype or a Format to a Format."""
     if isinstance(spec, Format):
         return spec
     if isinstance(spec, str):
-        key = spec.strip().lower().replace("-", "_")
+        key = format_key(spec)
         if key in FORMATS:
             return FORMATS[key]
         if key in _ALIASES:

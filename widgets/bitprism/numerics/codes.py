@@ -14,12 +14,21 @@ import numpy as np
 
 from ..errors import BitprismError, UnsupportedInputError
 from ..formats import Format, FormatLike, get_format
-from .exact import ExactValue, as_exact
+from .exact import as_exact
 from .kernel import CHUNK, SOURCE32, encode_bits, encode_table, source_for, table_eligible
-from .options import CastOptions, Overflow, Rounding, Subnormals
+from .options import CastOptions, Overflow, Rounding, Subnormals, resolve_options
 from .scalar import decode_exact, encode_exact
 
-__all__ = ["cast", "decode", "encode", "is_scalar_input", "to_float_array", "value_table"]
+__all__ = [
+    "cast",
+    "check_codes",
+    "decode",
+    "encode",
+    "encode_with",
+    "is_scalar_input",
+    "to_float_array",
+    "value_table",
+]
 
 # Inputs are converted to float32/float64 in blocks of this many elements, so memory stays
 # bounded whatever the input dtype.
@@ -88,25 +97,40 @@ def to_float_array(x: Any) -> np.ndarray:
 def encode(
     x: Any,
     fmt: FormatLike,
-    rounding: Rounding = "roundTiesToEven",
-    overflow: Overflow = "standard",
-    subnormals: Subnormals = "keep",
+    rounding: Rounding | None = None,
+    overflow: Overflow | None = None,
+    subnormals: Subnormals | None = None,
     seed: int | None = None,
     *,
+    options: CastOptions | None = None,
     progress: Callable[[int], None] | None = None,
 ) -> Any:
     """Correctly rounded cast of real values ``x`` into the bit patterns of ``fmt``.
 
     Arrays of any float dtype (ml_dtypes included), int or bool give an array of codes with
-    the same shape (dtype ``fmt.code_dtype``); a scalar gives a Python int.
+    the same shape (dtype ``fmt.code_dtype``); a scalar gives a Python int. The cast options
+    are ``options`` with the keyword shorthands replacing its fields (defaults:
+    roundTiesToEven, overflow "standard", subnormals "keep", no seed).
     """
-    f = get_format(fmt)
-    options = CastOptions(rounding, overflow, subnormals, seed)
+    return encode_with(x, get_format(fmt), resolve_options(options, rounding, overflow, subnormals, seed), progress)
+
+
+def encode_with(
+    x: Any,
+    fmt: Format,
+    options: CastOptions,
+    progress: Callable[[int], None] | None = None,
+    rng: np.random.Generator | None = None,
+) -> Any:
+    """``encode`` with a resolved format and options (what the layers above call). ``rng``:
+    the generator stochastic rounding draws from (default: one seeded with ``options.seed``),
+    for callers that cast a tensor piece by piece with a seed per piece."""
     if is_scalar_input(x):
-        rng = np.random.default_rng(seed) if options.rounding == "stochastic" else None
-        return encode_exact(as_exact(x), f, options, rng)
+        if rng is None and options.rounding == "stochastic":
+            rng = np.random.default_rng(options.seed)
+        return encode_exact(as_exact(x), fmt, options, rng)
     arr = to_float_array(x)
-    return _encode_array(arr, f, options, progress)
+    return _encode_array(arr, fmt, options, progress, rng)
 
 
 def _encode_array(
@@ -187,7 +211,7 @@ def _decode_arith(codes: np.ndarray, fmt: Format) -> np.ndarray:
     return val
 
 
-def _check_codes(codes: Any, fmt: Format) -> np.ndarray:
+def check_codes(codes: Any, fmt: Format) -> np.ndarray:
     arr = np.asarray(codes)
     if arr.dtype.kind not in "iu":
         raise BitprismError(
@@ -215,7 +239,7 @@ def decode(codes: Any, fmt: FormatLike) -> Any:
         if isinstance(codes, (bool, np.bool_)) or not isinstance(codes, (int, np.integer)):
             raise BitprismError(f"a code must be an integer bit pattern of {f.name}, got {codes!r}")
         return float(decode_exact(int(codes), f))
-    arr = _check_codes(codes, f)
+    arr = check_codes(codes, f)
     if f.bits <= 16:
         return value_table(f)[arr.astype(np.intp, copy=False)]
     if f.bits == 64 and f.significand_bits == 52 and f.emin == -1022 and f.specials == "ieee":
@@ -228,16 +252,13 @@ def decode(codes: Any, fmt: FormatLike) -> Any:
 def cast(
     x: Any,
     fmt: FormatLike,
-    rounding: Rounding = "roundTiesToEven",
-    overflow: Overflow = "standard",
-    subnormals: Subnormals = "keep",
+    rounding: Rounding | None = None,
+    overflow: Overflow | None = None,
+    subnormals: Subnormals | None = None,
     seed: int | None = None,
+    *,
+    options: CastOptions | None = None,
 ) -> Any:
     """``decode(encode(x, ...))``: the value ``x`` takes in ``fmt``, as float64."""
     f = get_format(fmt)
-    return decode(encode(x, f, rounding, overflow, subnormals, seed), f)
-
-
-def exact_of_code(code: int, fmt: FormatLike) -> ExactValue:
-    """The exact value of one code (kept here so UI layers need one import)."""
-    return decode_exact(int(code), get_format(fmt))
+    return decode(encode_with(x, f, resolve_options(options, rounding, overflow, subnormals, seed)), f)

@@ -4,7 +4,7 @@ Every row is computed exactly: the input is parsed as a rational (never through 
 float), rounded once into each format (or, with ``via``, first into the ``via`` format and then
 into each format: double rounding made visible), and the errors are Fractions measured against
 the exact input. The result is an immutable record whose text and HTML come from the render
-layer (imported lazily, so this module stays free of presentation code).
+layer through the display seam (``bitprism.display``), so this module holds no presentation.
 """
 
 from __future__ import annotations
@@ -12,16 +12,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 from fractions import Fraction
-from typing import Any, Iterable
+from typing import Any, Iterable, Sequence
 
 import numpy as np
 
+from ..display import Displayable
 from ..errors import BitprismError
 from ..formats import Format, FormatLike, get_format
 from .decimal_text import exact_decimal, exact_text, shortest_decimal
-from .exact import ExactValue, _floor_log2, as_exact
-from .inspect import CodeClass, Fields
-from .options import CastOptions, Overflow, Rounding, Subnormals
+from .exact import ExactValue, as_exact
+from .inspect import CodeClass, Fields, code_fields, exact_ulp, neighbour_codes
+from .options import CastOptions, Overflow, Rounding, Subnormals, resolve_options
+from .rounding import exceeds_largest
 from .scalar import decode_exact, encode_exact
 
 __all__ = [
@@ -30,10 +32,9 @@ __all__ = [
     "FormatRow",
     "Neighbour",
     "compare",
+    "compare_exact",
     "compare_row",
-    "exact_ulp",
-    "neighbour_codes",
-    "scalar_fields",
+    "read_input",
 ]
 
 DEFAULT_FORMATS: tuple[str, ...] = (
@@ -109,7 +110,7 @@ class FormatRow:
 
 
 @dataclass(frozen=True)
-class Comparison:
+class Comparison(Displayable):
     """One value across formats: the exact input, the options used and one row per format.
 
     Attributes:
@@ -141,67 +142,6 @@ class Comparison:
             f"{', '.join(r.format.name for r in self.rows)}"
         )
 
-    def to_text(self, width: int = 120) -> str:
-        from ..render.compare_text import comparison_text
-
-        return comparison_text(self, width=width)
-
-    def to_html(self, aligned: bool = True) -> str:
-        from ..render.compare_html import comparison_html
-
-        return comparison_html(self, aligned=aligned)
-
-    def __str__(self) -> str:
-        return self.to_text()
-
-    def _repr_html_(self) -> str:
-        return self.to_html()
-
-    def _repr_mimebundle_(self, include: Any = None, exclude: Any = None) -> dict[str, str]:
-        return {"text/plain": self.to_text(), "text/html": self.to_html()}
-
-
-# ----- exact helpers --------------------------------------------------------------------------
-def exact_ulp(value: ExactValue, fmt: Format) -> Fraction | None:
-    """ULP at a value of ``fmt`` (Goldberg / Handbook): for |x| in [2^e, 2^(e+1)),
-    2^(max(e, emin) - t), e capped at emax; ulp(0) is the smallest subnormal; None for NaN/Inf."""
-    if not value.is_finite:
-        return None
-    t = fmt.significand_bits
-    if value.is_zero:
-        e = fmt.emin
-    else:
-        e = min(max(_floor_log2(value.magnitude), fmt.emin), fmt.emax)
-    return Fraction(2) ** (e - t)
-
-
-def _top_magnitude(fmt: Format) -> int:
-    """Magnitude code of the largest non-NaN value (+Inf where it exists)."""
-    return fmt.inf_code if fmt.inf_code is not None else fmt.max_code
-
-
-def _code_of_rank(rank: int, fmt: Format) -> int:
-    if rank < 0:
-        return fmt.sign_mask | -rank
-    return rank
-
-
-def neighbour_codes(code: int, fmt: Format) -> tuple[int | None, int | None]:
-    """Codes of the values next below and next above ``code`` (IEEE nextDown / nextUp on the
-    value set: ±0 count as one value; Inf has nothing beyond it; NaN has no neighbours)."""
-    kind = fmt.classify(code)
-    if kind == "nan":
-        return None, None
-    mag = code & fmt.magnitude_mask
-    rank = -mag if (fmt.signed and code & fmt.sign_mask) else mag
-    top = _top_magnitude(fmt)
-    bottom = -top if fmt.signed else 0
-    down = _code_of_rank(rank - 1, fmt) if rank - 1 >= bottom else None
-    up = _code_of_rank(rank + 1, fmt) if rank + 1 <= top else None
-    if rank == 0 and fmt.signed and fmt.has_zero:
-        down = fmt.sign_mask | 1  # below either zero: the negative smallest subnormal
-    return down, up
-
 
 def _neighbour(code: int | None, fmt: Format) -> Neighbour | None:
     if code is None:
@@ -218,58 +158,6 @@ def _decode(code: int, fmt: Format) -> ExactValue:
 @lru_cache(maxsize=4096)
 def _shortest(code: int, fmt: Format) -> str:
     return shortest_decimal(code, fmt)
-
-
-def scalar_fields(code: int, fmt: Format) -> Fields:
-    """``inspect.fields`` for one code, in plain integers (no array round trip)."""
-    t = fmt.significand_bits
-    sign = (code >> (fmt.bits - 1)) & 1 if fmt.signed else 0
-    e = (code >> t) & fmt.exponent_field_max
-    sig = code & fmt.significand_mask
-    kind = CodeClass.NORMAL
-    payload = 0
-    if fmt.has_zero and e == 0:
-        kind = CodeClass.ZERO if sig == 0 else CodeClass.SUBNORMAL
-    cls = fmt.classify(code)
-    if cls == "inf":
-        kind = CodeClass.INFINITE
-    elif cls == "nan":
-        kind = CodeClass.QUIET_NAN
-        if fmt.specials == "ieee":
-            quiet = sig >> (t - 1) & 1
-            kind = CodeClass.QUIET_NAN if quiet else CodeClass.SIGNALING_NAN
-            payload = sig & ((1 << (t - 1)) - 1) if t > 1 else 0
-    elif fmt.specials == "fnuz" and code == 0:
-        kind = CodeClass.ZERO
-    return Fields(fmt, sign, e, sig, kind, payload)
-
-
-def _exceeds_max(x: ExactValue, fmt: Format, options: CastOptions) -> bool:
-    """IEEE 754 §7.4 overflow: |x| rounded with an unbounded exponent exceeds the largest
-    finite value (stochastic rounding: |x| itself lies beyond it)."""
-    if not x.is_finite or x.is_zero:
-        return False
-    mag = x.magnitude
-    if mag <= fmt.max_finite:
-        return False
-    mode = options.rounding
-    if mode == "stochastic":
-        return True
-    t = fmt.significand_bits
-    if t == 0 and mode == "roundTiesToEven":
-        mode = "roundTiesToAway"
-    q = _floor_log2(mag) - t
-    scaled = mag / Fraction(2) ** q
-    n = scaled.numerator // scaled.denominator
-    rem = scaled - n
-    half = Fraction(1, 2)
-    up = rem != 0 and (
-        (mode == "roundTiesToEven" and (rem > half or (rem == half and n & 1)))
-        or (mode == "roundTiesToAway" and rem >= half)
-        or (mode == "roundTowardPositive" and not x.negative)
-        or (mode == "roundTowardNegative" and x.negative)
-    )
-    return (n + up) * Fraction(2) ** q > fmt.max_finite
 
 
 def _not_representable(x: ExactValue, fmt: Format, stored: ExactValue) -> bool:
@@ -303,7 +191,7 @@ def compare_row(
     else:
         fmt.classify(code)  # range check with a clear message
     stored = _decode(code, fmt)
-    fl = scalar_fields(code, fmt)
+    fl = code_fields(code, fmt)
     ulp = exact_ulp(stored, fmt)
     abs_err = rel_err = ulp_err = None
     if x.is_finite and stored.is_finite and not x.clamped:
@@ -324,14 +212,19 @@ def compare_row(
         ulp=ulp,
         next_down=_neighbour(down, fmt),
         next_up=_neighbour(up, fmt),
-        overflowed=_exceeds_max(src, fmt, options) or (src.is_finite and not stored.is_finite),
+        # stochastic rounding beyond the largest finite value (None) counts as overflow
+        overflowed=exceeds_largest(src, fmt, options.rounding) is not False
+        or (src.is_finite and not stored.is_finite),
         underflowed=src.is_finite and not src.is_zero and stored.is_zero,
         subnormal=fl.kind == CodeClass.SUBNORMAL,
         not_representable=_not_representable(src, fmt, stored),
     )
 
 
-def _input(value: Any) -> tuple[ExactValue, str]:
+def read_input(value: Any) -> tuple[ExactValue, str]:
+    """The exact value of what ``compare`` is given, and the text that names it: text is
+    parsed exactly (``parse``) and shown as typed; numbers are converted without rounding and
+    shown as exact text."""
     if isinstance(value, str):
         from .parse import parse
 
@@ -343,38 +236,60 @@ def _input(value: Any) -> tuple[ExactValue, str]:
 def compare(
     value: Any,
     formats: Iterable[FormatLike] = DEFAULT_FORMATS,
-    rounding: Rounding = "roundTiesToEven",
-    overflow: Overflow = "standard",
-    subnormals: Subnormals = "keep",
+    rounding: Rounding | None = None,
+    overflow: Overflow | None = None,
+    subnormals: Subnormals | None = None,
     seed: int | None = None,
     via: FormatLike | None = None,
     *,
     pinned: tuple[FormatLike, int] | None = None,
+    options: CastOptions | None = None,
 ) -> Comparison:
     """Round one value into each of ``formats`` and report bits, stored value and errors.
 
     ``value`` is text (parsed exactly: decimals, hex floats, fractions, ``2**-24``, inf, nan,
-    -0), any number ``as_exact`` accepts, or an ExactValue. ``via`` names a format the input is
-    rounded to first (e.g. ``"float32"``), to show double rounding; errors are still measured
-    against the exact input. Stochastic rounding draws from ``seed`` afresh for every format, so
-    a row does not depend on which other formats are listed. ``pinned=(format, code)`` shows
-    that band at exactly ``code`` (the widget's bit toggles: a hand-set NaN payload stays).
+    -0), any number ``as_exact`` accepts, or an ExactValue. The cast options are ``options`` (a
+    ``CastOptions``) with the keyword shorthands ``rounding``, ``overflow``, ``subnormals`` and
+    ``seed`` replacing its fields (defaults: roundTiesToEven, standard, keep, no seed). ``via``
+    names a format the input is rounded to first (e.g. ``"float32"``), to show double rounding;
+    errors are still measured against the exact input. Stochastic rounding draws from the seed
+    afresh for every format, so a row does not depend on which other formats are listed.
+    ``pinned=(format, code)`` shows that band at exactly ``code`` (the widget's bit toggles: a
+    hand-set NaN payload stays).
     """
-    x, text = _input(value)
-    options = CastOptions(rounding, overflow, subnormals, seed)
+    x, text = read_input(value)
     fmts = [get_format(f) for f in (formats if not isinstance(formats, (str, Format)) else [formats])]
-    if not fmts:
+    pin = (get_format(pinned[0]), int(pinned[1])) if pinned else None
+    return compare_exact(
+        x,
+        text,
+        fmts,
+        resolve_options(options, rounding, overflow, subnormals, seed),
+        None if via is None else get_format(via),
+        pin,
+    )
+
+
+def compare_exact(
+    x: ExactValue,
+    text: str,
+    formats: Sequence[Format],
+    options: CastOptions,
+    via: Format | None = None,
+    pinned: tuple[Format, int] | None = None,
+) -> Comparison:
+    """``compare`` of an already exact input with resolved formats and options (what the
+    Prism calls: it parses the typed text once and keeps the value)."""
+    if not formats:
         raise BitprismError("compare() needs at least one format, got none")
-    via_fmt = None if via is None else get_format(via)
     via_code = None
     source = x
-    if via_fmt is not None:
-        rng = np.random.default_rng(seed) if options.rounding == "stochastic" else None
-        via_code = encode_exact(x, via_fmt, options, rng)
-        source = decode_exact(via_code, via_fmt)
-    pin_fmt, pin_code = (get_format(pinned[0]), int(pinned[1])) if pinned else (None, None)
+    if via is not None:
+        rng = np.random.default_rng(options.seed) if options.rounding == "stochastic" else None
+        via_code = encode_exact(x, via, options, rng)
+        source = decode_exact(via_code, via)
+    pin_fmt, pin_code = pinned if pinned is not None else (None, None)
     rows = tuple(
-        compare_row(x, f, options, source, pin_code if f == pin_fmt else None) for f in fmts
+        compare_row(x, f, options, source, pin_code if f == pin_fmt else None) for f in formats
     )
-    return Comparison(x, text, options, via_fmt, via_code, source, rows)
-
+    return Comparison(x, text, options, via, via_code, source, rows)

@@ -15,16 +15,18 @@ rather than being a value of the format.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from fractions import Fraction
 from typing import Any
 
 import numpy as np
 
+from ..display import Displayable
 from ..errors import ParseError
 from ..formats import Format, FormatLike, get_format
-from .exact import ExactValue, _floor_log2
-from .options import CastOptions
-from .parse import Binary, Node, Number, Unary, apply_operation, parse_tree, reduce_exact
+from .exact import ExactValue
+from .exact_arithmetic import apply_operation, reduce_exact
+from .expression import Binary, Node, Number, Unary, parse_tree
+from .options import CastOptions, resolve_options
+from .rounding import exceeds_largest
 from .scalar import decode_exact, encode_exact
 
 __all__ = ["STEP_EVENTS", "Evaluation", "Step", "evaluate"]
@@ -65,7 +67,7 @@ class Step:
 
 
 @dataclass(frozen=True)
-class Evaluation:
+class Evaluation(Displayable):
     """An expression evaluated in one format, with the exact value beside it.
 
     Attributes:
@@ -91,31 +93,6 @@ class Evaluation:
     steps: tuple[Step, ...]
     exact_error: str | None = field(default=None)
 
-    def __str__(self) -> str:
-        width = (self.format.bits + 3) // 4
-        hexcode = f"0x{{:0{width}x}}"
-        lines = [
-            f"{self.text.strip()}  in {self.format.name} ({self.options.rounding}, "
-            f"overflow={self.options.overflow}, subnormals={self.options.subnormals})",
-            f"  result: {_show(self.result)}  [{hexcode.format(self.code)}]",
-        ]
-        if self.exact is None:
-            lines.append(f"  exact:  not available ({self.exact_error})")
-        else:
-            assert self.exact_code is not None
-            same = "same" if self.exact_code == self.code else "differs"
-            lines.append(
-                f"  exact:  {_show(self.exact)}  (rounded once: {hexcode.format(self.exact_code)}, "
-                f"{same})"
-            )
-        lines.append("  steps:")
-        for step in self.steps:
-            lines.append(
-                f"    {step.operation}  = {_show(step.exact)}  ->  {_show(step.rounded)} "
-                f"[{hexcode.format(step.code)}]  {step.event}"
-            )
-        return "\n".join(lines)
-
 
 def _same(a: ExactValue, b: ExactValue) -> bool:
     return (a.kind, a.negative, a.magnitude, a.clamped) == (
@@ -124,39 +101,6 @@ def _same(a: ExactValue, b: ExactValue) -> bool:
         b.magnitude,
         b.clamped,
     )
-
-
-def _show(v: ExactValue, digits: int = 17) -> str:
-    """Short readable text for a value: exact when short, else ~17 significant digits."""
-    sign = "-" if v.negative else ""
-    if v.kind != "finite" or v.clamped:
-        return str(v)
-    q = v.magnitude
-    if q == 0:
-        return f"{sign}0"
-    n, d = q.numerator, q.denominator
-    if n.bit_length() < 100 and d.bit_length() < 100:
-        if d & (d - 1) == 0:  # a binary fraction: its decimal expansion is finite
-            k = d.bit_length() - 1
-            scaled = n * 5**k  # n / 2^k = n * 5^k / 10^k
-            text = str(scaled).rjust(k + 1, "0")
-            whole, frac = text[: len(text) - k], text[len(text) - k :].rstrip("0")
-            if len(whole) + len(frac) <= 40:
-                return f"{sign}{whole}.{frac}" if frac else f"{sign}{whole}"
-        if len(str(n)) + len(str(d)) <= 40:
-            return f"{sign}{q}"
-    # about `digits` significant digits, in integers (the value may exceed float64's range)
-    e10 = int((n.bit_length() - d.bit_length()) * 0.30102999566398120)
-    scaled_q = q * Fraction(10) ** (digits - 1 - e10)
-    m = round(scaled_q)
-    while m >= 10**digits:
-        e10 += 1
-        m = round(q * Fraction(10) ** (digits - 1 - e10))
-    while m < 10 ** (digits - 1):
-        e10 -= 1
-        m = round(q * Fraction(10) ** (digits - 1 - e10))
-    mantissa = str(m)
-    return f"{sign}~{mantissa[0]}.{mantissa[1:].rstrip('0') or '0'}e{e10:+d}"
 
 
 class _Walker:
@@ -208,37 +152,6 @@ class _Walker:
         return self.record(node, node.op, (left, right), exact)
 
 
-def _overflows(x: ExactValue, fmt: Format, rounding: str) -> bool | None:
-    """IEEE 754 §7.4 overflow: x rounded with an unbounded exponent range exceeds the largest
-    finite value (None for stochastic rounding, whose draw cannot be replayed)."""
-    mag = x.magnitude
-    if mag <= fmt.max_finite:
-        return False
-    if rounding == "stochastic":
-        return None
-    e = _floor_log2(mag)
-    if e > fmt.emax + 1:
-        return True  # even rounding toward zero stays at or above 2^(emax+1)
-    t = fmt.significand_bits
-    if t == 0 and rounding == "roundTiesToEven":
-        rounding = "roundTiesToAway"  # no even significand to prefer (as the scalar cast does)
-    ulp = Fraction(2) ** (e - t)
-    scaled = mag / ulp
-    n = scaled.numerator // scaled.denominator
-    rem = scaled - n
-    if rounding == "roundTiesToEven":
-        up = rem > Fraction(1, 2) or (rem == Fraction(1, 2) and n % 2 == 1)
-    elif rounding == "roundTiesToAway":
-        up = rem >= Fraction(1, 2)
-    elif rounding == "roundTowardPositive":
-        up = rem > 0 and not x.negative
-    elif rounding == "roundTowardNegative":
-        up = rem > 0 and x.negative
-    else:  # roundTowardZero
-        up = False
-    return (n + up) * ulp > fmt.max_finite
-
-
 def _event(
     fmt: Format,
     rounding: str,
@@ -258,7 +171,7 @@ def _event(
     if exact.is_finite and not exact.is_zero:
         if not rounded.is_finite:
             return "overflow"  # to Inf, or to NaN in a format without Inf
-        beyond = _overflows(exact, fmt, rounding)
+        beyond = exceeds_largest(exact, fmt, rounding)
         if beyond is None:  # stochastic: the draw decided; judge by the saturated result
             beyond = exact.magnitude > fmt.max_finite and rounded.magnitude == fmt.max_finite
         if beyond:
@@ -279,21 +192,24 @@ def _event(
 def evaluate(
     text: str,
     fmt: FormatLike,
-    rounding: str = "roundTiesToEven",
-    overflow: str = "standard",
-    subnormals: str = "keep",
+    rounding: str | None = None,
+    overflow: str | None = None,
+    subnormals: str | None = None,
     seed: int | None = None,
+    *,
+    options: CastOptions | None = None,
 ) -> Evaluation:
     """Evaluate ``text`` with every literal and every intermediate result rounded to ``fmt``.
 
-    Options are those of a cast (IEEE 754 rounding-direction names or 'stochastic' with
-    ``seed``; ``overflow`` 'standard' or 'saturate'; ``subnormals`` 'keep' or 'flush'). Syntax
-    and arithmetic errors raise ParseError with the column.
+    Options are those of a cast: ``options`` (a ``CastOptions``) with the keyword shorthands
+    replacing its fields (IEEE 754 rounding-direction names or 'stochastic' with ``seed``;
+    ``overflow`` 'standard' or 'saturate'; ``subnormals`` 'keep' or 'flush'). Syntax and
+    arithmetic errors raise ParseError with the column.
     """
     fmt = get_format(fmt)
-    options = CastOptions(rounding, overflow, subnormals, seed)  # type: ignore[arg-type]
+    options = resolve_options(options, rounding, overflow, subnormals, seed)
     root = parse_tree(text)
-    rng = np.random.default_rng(seed) if options.rounding == "stochastic" else None
+    rng = np.random.default_rng(options.seed) if options.rounding == "stochastic" else None
     walker = _Walker(text, fmt, options, rng)
     result, code = walker.walk(root)
     exact: ExactValue | None

@@ -19,7 +19,7 @@ import numpy as np
 
 from ..errors import BitprismError, UnsupportedInputError
 
-__all__ = ["MAGNITUDE_LIMIT", "ExactValue", "RealLike", "as_exact"]
+__all__ = ["MAGNITUDE_LIMIT", "ExactValue", "RealLike", "as_exact", "floor_log2"]
 
 # 2^±131072 lies far beyond float64's 2^-1074 .. 2^1024; any magnitude past it rounds the same
 # way in every format, so it can be represented by the limit itself.
@@ -60,7 +60,7 @@ class ExactValue:
         mag = abs(value)
         if mag == 0:
             return cls("finite", neg, Fraction(0))
-        e = _floor_log2(mag)
+        e = floor_log2(mag)
         if e >= MAGNITUDE_LIMIT:
             return cls("finite", neg, Fraction(2) ** MAGNITUDE_LIMIT, clamped=1)
         if e < -MAGNITUDE_LIMIT:
@@ -103,7 +103,7 @@ class ExactValue:
         """e with 2^e <= |x| < 2^(e+1), for finite nonzero x."""
         if self.kind != "finite" or self.magnitude == 0:
             raise BitprismError(f"floor_log2 needs a finite nonzero value, got {self}")
-        return _floor_log2(self.magnitude)
+        return floor_log2(self.magnitude)
 
     def __float__(self) -> float:
         if self.kind == "nan":
@@ -129,8 +129,11 @@ class ExactValue:
         return f"{sign}{self.magnitude}"
 
 
-def _floor_log2(q: Fraction) -> int:
-    """floor(log2(q)) for q > 0, in integers: compare n with d shifted by the bit-length guess."""
+def floor_log2(q: Fraction | int) -> int:
+    """floor(log2(q)) for q > 0, exactly, in integers: compare n with d shifted by the
+    bit-length guess (no float, so it is right for every size of q)."""
+    if not isinstance(q, Fraction):
+        q = Fraction(q)
     n, d = q.numerator, q.denominator
     e = n.bit_length() - d.bit_length()
     # 2^e <= n/d  <=>  n >= d << e (e >= 0)  or  n << -e >= d (e < 0)

@@ -1,24 +1,33 @@
 """Reading codes apart (fields, class, NaN payload) and walking the value set (ULP, neighbours).
 
-All functions are vectorized over numpy arrays and also accept scalars.
+The public functions are vectorized over numpy arrays and also accept scalars. Beside them sit
+their exact scalar twins, in Python integers and ``Fraction``s, which ``compare`` and the
+widgets use one code at a time (no array round trip): ``code_fields``, ``exact_ulp``,
+``neighbour_codes``. Tests hold each twin to its vectorized counterpart on every code of every
+format of up to 16 bits.
 """
 
 from __future__ import annotations
 
 import enum
 from dataclasses import dataclass
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
 
 from ..formats import Format, FormatLike, get_format
-from .codes import _check_codes, decode, encode, is_scalar_input
-from .options import Rounding
+from .codes import check_codes, decode, encode_with, is_scalar_input
+from .exact import ExactValue, floor_log2
+from .options import DEFAULT_OPTIONS, CastOptions
 
 __all__ = [
     "CodeClass",
     "Fields",
+    "code_fields",
+    "exact_ulp",
     "fields",
+    "neighbour_codes",
     "next_down",
     "next_up",
     "rank",
@@ -88,11 +97,35 @@ def _classify(fmt: Format, c: np.ndarray, e: np.ndarray, f: np.ndarray) -> np.nd
     return kind
 
 
+def code_fields(code: int, fmt: Format) -> Fields:
+    """``fields`` of one code, in plain integers (the scalar twin of the vectorized path)."""
+    t = fmt.significand_bits
+    sign = (code >> (fmt.bits - 1)) & 1 if fmt.signed else 0
+    e = (code >> t) & fmt.exponent_field_max
+    sig = code & fmt.significand_mask
+    kind = CodeClass.NORMAL
+    payload = 0
+    if fmt.has_zero and e == 0:
+        kind = CodeClass.ZERO if sig == 0 else CodeClass.SUBNORMAL
+    cls = fmt.classify(code)
+    if cls == "inf":
+        kind = CodeClass.INFINITE
+    elif cls == "nan":
+        kind = CodeClass.QUIET_NAN
+        if fmt.specials == "ieee":
+            quiet = sig >> (t - 1) & 1
+            kind = CodeClass.QUIET_NAN if quiet else CodeClass.SIGNALING_NAN
+            payload = sig & ((1 << (t - 1)) - 1) if t > 1 else 0
+    elif fmt.specials == "fnuz" and code == 0:
+        kind = CodeClass.ZERO
+    return Fields(fmt, sign, e, sig, kind, payload)
+
+
 def fields(codes: Any, fmt: FormatLike) -> Fields:
     """Split codes into sign, biased exponent, trailing significand, class and NaN payload."""
     f = get_format(fmt)
     scalar = is_scalar_input(codes)
-    arr = _check_codes(codes, f).astype(np.uint64)
+    arr = check_codes(codes, f).astype(np.uint64)
     t = np.uint64(f.significand_bits)
     sign = (arr >> np.uint64(f.bits - 1)) & np.uint64(1) if f.signed else np.zeros_like(arr)
     e = (arr >> t) & np.uint64(f.exponent_field_max)
@@ -118,6 +151,42 @@ def rank(codes: Any, fmt: FormatLike) -> np.ndarray:
         return mag
     neg = (c & np.uint64(f.sign_mask)) != 0
     return np.where(neg, -mag, mag)
+
+
+def exact_ulp(value: ExactValue, fmt: Format) -> Fraction | None:
+    """ULP at a value of ``fmt`` (Goldberg / Handbook): for |x| in [2^e, 2^(e+1)),
+    2^(max(e, emin) - t), e capped at emax; ulp(0) is the smallest subnormal; None for NaN/Inf.
+    The exact twin of ``ulp``."""
+    if not value.is_finite:
+        return None
+    t = fmt.significand_bits
+    if value.is_zero:
+        e = fmt.emin
+    else:
+        e = min(max(floor_log2(value.magnitude), fmt.emin), fmt.emax)
+    return Fraction(2) ** (e - t)
+
+
+def neighbour_codes(code: int, fmt: Format) -> tuple[int | None, int | None]:
+    """Codes of the values next below and next above ``code`` (IEEE nextDown / nextUp on the
+    value set: ±0 count as one value; Inf has nothing beyond it; NaN has no neighbours). The
+    scalar twin of ``next_down`` / ``next_up`` on codes."""
+    kind = fmt.classify(code)
+    if kind == "nan":
+        return None, None
+    mag = code & fmt.magnitude_mask
+    r = -mag if (fmt.signed and code & fmt.sign_mask) else mag
+    top = _top_rank(fmt)
+    bottom = _bottom_rank(fmt)
+    down = _code_of_int_rank(r - 1, fmt) if r - 1 >= bottom else None
+    up = _code_of_int_rank(r + 1, fmt) if r + 1 <= top else None
+    if r == 0 and fmt.signed and fmt.has_zero:
+        down = fmt.sign_mask | 1  # below either zero: the negative smallest subnormal
+    return down, up
+
+
+def _code_of_int_rank(r: int, fmt: Format) -> int:
+    return fmt.sign_mask | -r if r < 0 else r
 
 
 def _top_rank(f: Format) -> int:
@@ -161,12 +230,16 @@ def ulp(x: Any, fmt: FormatLike) -> Any:
     return _out(out, scalar)
 
 
+# the representable value on the far side of x: saturated, so x beyond the range gives max
+_FLOOR = CastOptions("roundTowardNegative", "saturate")
+_CEILING = CastOptions("roundTowardPositive", "saturate")
+
+
 def _step(x: Any, fmt: FormatLike, up: bool) -> Any:
     f = get_format(fmt)
     arr, scalar = _values(x)
     # the representable value on the far side of x (<= x for next_up, >= x for next_down)
-    mode: Rounding = "roundTowardNegative" if up else "roundTowardPositive"
-    codes = encode(arr, f, mode, overflow="saturate")
+    codes = encode_with(arr, f, _FLOOR if up else _CEILING)
     v = decode(codes, f)
     r = rank(codes, f) + (1 if up else -1)
     stepped = decode(_code_of_rank(np.clip(r, _bottom_rank(f), _top_rank(f)), f), f)
@@ -210,7 +283,7 @@ def ulp_distance(a: Any, b: Any, fmt: FormatLike) -> Any:
     f = get_format(fmt)
     aa, sa = _values(a)
     bb, sb = _values(b)
-    ca, cb = encode(aa, f), encode(bb, f)
+    ca, cb = encode_with(aa, f, DEFAULT_OPTIONS), encode_with(bb, f, DEFAULT_OPTIONS)
     d = rank(cb, f).astype(np.float64) - rank(ca, f).astype(np.float64)
     d = np.where(np.isnan(decode(ca, f)) | np.isnan(decode(cb, f)), np.nan, d)
     return _out(d, sa and sb)

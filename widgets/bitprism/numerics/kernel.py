@@ -29,6 +29,7 @@ import numpy as np
 
 from ..formats import Format
 from .options import CastOptions
+from .rounding import effective_rounding
 from .scalar import nan_input_code, overflow_code
 
 __all__ = ["CHUNK", "encode_bits"]
@@ -99,9 +100,7 @@ class _Plan:
 @lru_cache(maxsize=256)
 def _plan(src: _Source, fmt: Format, options: CastOptions) -> _Plan:
     t = fmt.significand_bits
-    mode = options.rounding
-    if t == 0 and mode == "roundTiesToEven":
-        mode = "roundTiesToAway"  # no even significand exists; ties go away (as ml_dtypes)
+    mode = effective_rounding(fmt, options.rounding)
     d = src.t - t
     rebias = (src.bias - fmt.bias) << src.t
     if d == 0:
@@ -318,7 +317,7 @@ def _special_codes(plan: _Plan, bits: np.ndarray, options: CastOptions) -> np.nd
     is_nan = frac != 0
     for negative in (False, True):
         inf_sel = ~is_nan & (neg == negative)
-        out[inf_sel] = overflow_code(fmt, negative, CastOptions("roundTiesToEven", options.overflow))
+        out[inf_sel] = overflow_code(fmt, negative, "roundTiesToEven", options.overflow)
         out[is_nan & (neg == negative)] = nan_input_code(fmt, negative)
     if fmt.specials == "ieee" and fmt.significand_bits > 1 and is_nan.any():
         payload = (frac >> np.uint64(plan.d)) & np.uint64((1 << (fmt.significand_bits - 1)) - 1)

@@ -18,15 +18,13 @@ from __future__ import annotations
 from fractions import Fraction
 from typing import Any
 
-import numpy as np
 
 from ..formats import Format
-from .exact import ExactValue, _floor_log2
-from .options import CastOptions
+from .exact import ExactValue, floor_log2
+from .options import DEFAULT_OPTIONS, CastOptions
+from .rounding import effective_rounding, round_scaled
 
 __all__ = ["decode_exact", "encode_exact", "overflow_code", "nan_input_code"]
-
-_DEFAULT = CastOptions()
 
 
 def _signed(fmt: Format, negative: bool, magnitude_code: int) -> int:
@@ -53,15 +51,16 @@ def nan_input_code(fmt: Format, negative: bool) -> int:
     return _signed(fmt, negative, 0) if fmt.has_zero else 0
 
 
-def overflow_code(fmt: Format, negative: bool, options: CastOptions) -> int:
+def overflow_code(fmt: Format, negative: bool, rounding: str, overflow: str) -> int:
     """Code of a result whose rounded magnitude exceeds the largest finite value.
 
     IEEE 754-2008 §7.4: to nearest -> Inf; toward zero -> max; toward ±Inf -> Inf on that side
-    and max on the other. "Inf" falls back to NaN, then to max, for formats lacking it.
+    and max on the other. "Inf" falls back to NaN, then to max, for formats lacking it. An Inf
+    input is converted as roundTiesToEven's overflow (Inf stays Inf where the format has it).
     """
-    if options.overflow == "saturate":
+    if overflow == "saturate":
         return _signed(fmt, negative, fmt.max_code)
-    mode = options.rounding
+    mode = rounding
     to_special = (
         mode in ("roundTiesToEven", "roundTiesToAway", "stochastic")
         or (mode == "roundTowardPositive" and not negative)
@@ -77,31 +76,10 @@ def overflow_code(fmt: Format, negative: bool, options: CastOptions) -> int:
     return _signed(fmt, negative, fmt.max_code)
 
 
-def _round_up(n: int, rem: Fraction, negative: bool, mode: str, rng: Any) -> bool:
-    """Whether the magnitude n + rem (0 <= rem < 1) rounds up to n + 1."""
-    if rem == 0:
-        return False
-    if mode == "roundTiesToEven":
-        return rem > Fraction(1, 2) or (rem == Fraction(1, 2) and n & 1 == 1)
-    if mode == "roundTiesToAway":
-        return rem >= Fraction(1, 2)
-    if mode == "roundTowardZero":
-        return False
-    if mode == "roundTowardPositive":
-        return not negative
-    if mode == "roundTowardNegative":
-        return negative
-    # stochastic: up with probability rem, decided by a uniform 64-bit draw (exact comparison)
-    if rng is None:
-        rng = np.random.default_rng()
-    draw = int(rng.integers(0, 1 << 63, dtype=np.int64)) * 2 + int(rng.integers(0, 2))
-    return Fraction(draw, 1 << 64) < rem
-
-
 def encode_exact(
     x: ExactValue,
     fmt: Format,
-    options: CastOptions = _DEFAULT,
+    options: CastOptions = DEFAULT_OPTIONS,
     rng: Any = None,
 ) -> int:
     """The code of ``x`` rounded once into ``fmt`` under ``options``."""
@@ -112,24 +90,20 @@ def encode_exact(
         # unsigned formats: negative numbers (and -Inf) are not representable
         return nan_input_code(fmt, False) if fmt.has_nan else 0
     if x.is_inf:
-        return overflow_code(fmt, neg, CastOptions("roundTiesToEven", options.overflow))
+        return overflow_code(fmt, neg, "roundTiesToEven", options.overflow)
     if x.is_zero:
         if not fmt.has_zero:
             return nan_input_code(fmt, False) if fmt.has_nan else 0
         return _signed(fmt, neg, 0)
 
     t = fmt.significand_bits
-    mode = options.rounding
-    if t == 0 and mode == "roundTiesToEven":
-        mode = "roundTiesToAway"
+    mode = effective_rounding(fmt, options.rounding)
     mag = x.magnitude
-    e = _floor_log2(mag)
+    e = floor_log2(mag)
     if not fmt.has_zero and e < fmt.emin:
         return 0  # no zero to round to: everything below the smallest value becomes it
     q = max(e, fmt.emin) - t  # exponent of the unit in the last place
-    scaled = mag / Fraction(2) ** q
-    n = scaled.numerator // scaled.denominator
-    m = n + _round_up(n, scaled - n, neg, mode, rng)
+    m = round_scaled(mag / Fraction(2) ** q, neg, mode, rng)
     if m >= 1 << t:  # normal (a subnormal may have rounded up into the first normal binade)
         if m == 1 << (t + 1):
             m >>= 1
@@ -139,7 +113,7 @@ def encode_exact(
     else:
         code = m
     if code > fmt.max_code:
-        return overflow_code(fmt, neg, options)
+        return overflow_code(fmt, neg, options.rounding, options.overflow)
     if options.subnormals == "flush" and fmt.has_zero and 0 < code < (1 << t):
         code = 0
     return _signed(fmt, neg, code)

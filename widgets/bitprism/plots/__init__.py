@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+from .. import display
+from ..tensors.scan import ScanResult
 from .range_chart import range_chart
 
 __all__ = ["range_chart"]
+
+display.register("plot", ScanResult, range_chart)

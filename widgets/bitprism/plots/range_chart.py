@@ -129,7 +129,7 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
             top = max(counts)  # headroom above the tallest bar for the band labels
             ax.set_ylim(0.5 if log else 0, top * 40 if log else top * 1.3)
         ax.set_xlim(lo, hi)
-        ax.set_ylabel(f.format, rotation=0, ha="right", va="center", fontsize=8)
+        ax.set_ylabel(f.name, rotation=0, ha="right", va="center", fontsize=8)
         ax.tick_params(labelsize=7)
     axes[-1].set_xlabel("binary exponent  floor(log2 |x|)")
     extra = []

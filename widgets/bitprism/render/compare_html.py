@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Sequence
 
 from ..numerics.compare import Comparison, FormatRow
 from ..numerics.decimal_text import abbreviate_decimal, exact_decimal, readable_decimal
-from ..numerics.exact import ExactValue, _floor_log2
+from ..numerics.exact import ExactValue, floor_log2
 from ..numerics.inspect import CodeClass
 from .compare_text import (
     MINUS,
@@ -209,7 +209,7 @@ def band_html(c: Comparison, row: FormatRow, tiles: bool = True) -> str:
 def _ulp_text(row: FormatRow) -> str:
     if row.ulp is None:
         return "n/a"
-    e = _floor_log2(row.ulp)
+    e = floor_log2(row.ulp)
     return f"2^{e}" if e >= 0 else f"2^{MINUS}{-e}"
 
 

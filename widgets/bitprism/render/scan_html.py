@@ -11,7 +11,7 @@ from html import escape
 from typing import Any
 
 from .palette import badge_style
-from .scan_text import COLUMNS, fmt_count, header_lines, scan_rows
+from .scan_text import COLUMNS, block_nan_note, fmt_count, scan_header, scan_rows
 
 __all__ = ["scan_html"]
 
@@ -39,22 +39,18 @@ def _cell(kind: str | None, text: str, nonzero: bool) -> str:
 
 def scan_html(result: Any) -> str:
     """The result as a self-contained HTML fragment."""
-    head = header_lines(result)
-    h = result.histogram
+    head = scan_header(result)
     badges = " ".join(
-        _badge(kind, f"{label} {fmt_count(n, result.size)}")
-        for kind, label, n in (("nan", "NaN", h.nan), ("inf", "Inf", h.inf),
-                               ("zero", "zero", h.zero), ("subnormal", "subnormal", h.subnormal))
-        if n
+        _badge(kind, f"{label} {fmt_count(n, result.size)}") for kind, label, n in head.classes if n
     )
     parts = [f'<div class="bitprism-scan" style="{_BOX}">']
-    parts.append(f'<div style="font-weight:600">{escape(head[0])}</div>')
-    for line in head[1:]:
-        if line.lstrip().startswith("NaN "):
-            if badges:
-                parts.append(f'<div style="margin:2px 0">{badges}</div>')
-            continue
-        parts.append(f"<div>{escape(line.strip())}</div>")
+    parts.append(f'<div style="font-weight:600">{escape(head.title)}</div>')
+    parts.append(f"<div>{escape(head.extrema)}</div>")
+    if badges:
+        parts.append(f'<div style="margin:2px 0">{badges}</div>')
+    for line in (head.exponents, head.options):
+        if line is not None:
+            parts.append(f"<div>{escape(line)}</div>")
     parts.append('<table style="border-collapse:collapse;margin-top:6px">')
     parts.append(
         "<thead><tr>"
@@ -72,5 +68,9 @@ def scan_html(result: Any) -> str:
             kind = kinds[i] if i < len(kinds) else None
             cells.append(_cell(kind, text, bool(counts[i]) if i < len(counts) else False))
         parts.append("<tr>" + "".join(cells) + "</tr>")
-    parts.append("</tbody></table></div>")
+    parts.append("</tbody></table>")
+    note = block_nan_note(result)
+    if note is not None:
+        parts.append(f'<div style="margin-top:4px">{escape(note)}</div>')
+    parts.append("</div>")
     return "".join(parts)

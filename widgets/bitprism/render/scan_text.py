@@ -6,9 +6,19 @@ Pure function of the result (no I/O, no widgets); the HTML twin is ``scan_html``
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["fmt_count", "fmt_float", "scan_rows", "scan_text"]
+__all__ = [
+    "ScanHeader",
+    "block_nan_note",
+    "fmt_count",
+    "fmt_float",
+    "header_lines",
+    "scan_header",
+    "scan_rows",
+    "scan_text",
+]
 
 COLUMNS = (
     "format",
@@ -54,7 +64,7 @@ def scan_rows(result: Any) -> list[list[str]]:
     for f in result.formats:
         rows.append(
             [
-                f.format,
+                f.name,
                 fmt_count(f.overflow, f.size),
                 fmt_count(f.underflow, f.size),
                 fmt_count(f.subnormal, f.size),
@@ -71,30 +81,65 @@ def scan_rows(result: Any) -> list[list[str]]:
     return rows
 
 
-def header_lines(result: Any) -> list[str]:
+@dataclass(frozen=True)
+class ScanHeader:
+    """The facts above a scan's table, in words: shared by the text and the HTML.
+
+    ``classes``: (palette role, label, count) of the input's own NaN, Inf, zero and subnormal
+    elements; the other fields are whole lines (without indentation)."""
+
+    title: str
+    extrema: str
+    classes: tuple[tuple[str, str, int], ...]
+    exponents: str | None
+    options: str
+
+
+def scan_header(result: Any) -> ScanHeader:
     shape = "x".join(str(s) for s in result.shape) or "scalar"
     h = result.histogram
-    lines = [
-        f"scan of {result.dtype} [{shape}], {result.size:,} elements",
-        f"  min {fmt_float(result.min, 6)}  max {fmt_float(result.max, 6)}  "
-        f"|max| {fmt_float(result.absmax, 6)}",
-        f"  NaN {fmt_count(h.nan, result.size)}  Inf {fmt_count(h.inf, result.size)}  "
-        f"zero {fmt_count(h.zero, result.size)}  subnormal {fmt_count(h.subnormal, result.size)}",
-    ]
+    exponents = None
     if h.exponents:
-        lines.append(f"  binary exponents {h.exponents[0]} .. {h.exponents[-1]}")
+        exponents = f"binary exponents {h.exponents[0]} .. {h.exponents[-1]}"
     elif not h.collected:
-        lines.append("  binary exponents not collected (a counts-only scan leaves them out)")
-    opts = f"  {result.rounding}, overflow={result.overflow}, subnormals={result.subnormals}"
+        exponents = "binary exponents not collected (a counts-only scan leaves them out)"
+    opts = f"{result.rounding}, overflow={result.overflow}, subnormals={result.subnormals}"
     if result.scale is not None:
         opts += f", scale={result.scale!r} (errors against the scaled data)"
     opts += f", quantiles={result.quantiles}"
-    lines.append(opts)
+    return ScanHeader(
+        title=f"scan of {result.dtype} [{shape}], {result.size:,} elements",
+        extrema=f"min {fmt_float(result.min, 6)}  max {fmt_float(result.max, 6)}  "
+        f"|max| {fmt_float(result.absmax, 6)}",
+        classes=(("nan", "NaN", h.nan), ("inf", "Inf", h.inf), ("zero", "zero", h.zero),
+                 ("subnormal", "subnormal", h.subnormal)),
+        exponents=exponents,
+        options=opts,
+    )
+
+
+def header_lines(result: Any) -> list[str]:
+    head = scan_header(result)
+    classes = "  ".join(f"{label} {fmt_count(n, result.size)}" for _, label, n in head.classes)
+    lines = [head.title, f"  {head.extrema}", f"  {classes}"]
+    if head.exponents is not None:
+        lines.append(f"  {head.exponents}")
+    lines.append(f"  {head.options}")
     return lines
 
 
+def block_nan_note(result: Any) -> str | None:
+    """One line on the block formats' finite values lost to a NaN/Inf in their block (counted
+    apart from overflow), or None when the scan has no block formats."""
+    rows = [f for f in result.formats if f.block_nan is not None]
+    if not rows:
+        return None
+    parts = ", ".join(f"{f.name} {fmt_count(f.block_nan, f.size)}" for f in rows)
+    return f"block NaN (finite values lost to a NaN/Inf in their block, not overflow): {parts}"
+
+
 def scan_text(result: Any) -> str:
-    """The result as an aligned plain-text table."""
+    """The result as an aligned plain-text table (and the block-NaN note, if any)."""
     rows = scan_rows(result)
     cells = [list(COLUMNS)] + rows
     widths = [max(len(r[i]) for r in cells) for i in range(len(COLUMNS))]
@@ -106,4 +151,7 @@ def scan_text(result: Any) -> str:
         out.append(line.rstrip())
         if j == 0:
             out.append("  ".join("-" * w for w in widths))
+    note = block_nan_note(result)
+    if note is not None:
+        out.append(note)
     return "\n".join(out)

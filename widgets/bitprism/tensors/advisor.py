@@ -17,16 +17,16 @@ zero scale); they stay NaN and Inf after scaling and are counted in the result.
 
 from __future__ import annotations
 
-import html
 from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any, Sequence
 
 import numpy as np
 
+from ..display import Displayable
 from ..errors import BitprismError
 from ..formats import Format, FormatLike, get_format
-from ..numerics.exact import _floor_log2
+from ..numerics.exact import floor_log2
 
 __all__ = ["ScaleAdvice", "suggest_scale"]
 
@@ -36,7 +36,7 @@ _F64_MIN_EXP = -1022
 
 
 @dataclass(frozen=True, eq=False)
-class ScaleAdvice:
+class ScaleAdvice(Displayable):
     """A proposed per-tensor scale for one format, with the scans it was judged by.
 
     Attributes:
@@ -68,67 +68,11 @@ class ScaleAdvice:
     before: Any = None
     after: Any = None
 
-    def _head(self) -> list[tuple[str, str]]:
-        scale = f"{self.scale!r}"
-        if self.exponent is not None:
-            scale += f" = 2^{self.exponent}"
-        rows = [
-            ("format", f"{self.format.name} (max finite {float(self.format.max_finite):g})"),
-            ("margin", f"{self.margin} (target amax {float(self.target):g})"),
-            ("amax", f"{self.amax!r}"),
-            ("scale", scale),
-            ("amax x scale", f"{self.amax * self.scale!r}"),
-        ]
-        if self.nan_count or self.inf_count:
-            counts = f"{self.nan_count} NaN, {self.inf_count} Inf (left as they are)"
-            rows.append(("not finite", counts))
-        rows.append(("advice", self.message))
-        return rows
-
-    def __str__(self) -> str:
-        rows = self._head()
-        width = max(len(k) for k, _ in rows)
-        parts = ["\n".join(f"{k:<{width}}  {v}" for k, v in rows)]
-        if self.before is not None:
-            parts.append("-- without scaling --\n" + _text(self.before))
-        if self.after is not None:
-            parts.append(f"-- multiplied by {self.scale!r} --\n" + _text(self.after))
-        return "\n\n".join(parts)
-
     def __repr__(self) -> str:
         return f"<ScaleAdvice {self.format.name} scale={self.scale!r} amax={self.amax!r}>"
 
     def _repr_pretty_(self, p: Any, cycle: bool) -> None:
         p.text(str(self))
-
-    def _repr_html_(self) -> str:
-        head = "".join(
-            f"<tr><th style='text-align:left'>{html.escape(k)}</th><td>{html.escape(v)}</td></tr>"
-            for k, v in self._head()
-        )
-        out = f"<div class='bitprism-advice'><table>{head}</table>"
-        if self.before is not None and self.after is not None:
-            out += (
-                "<table><tr><th>without scaling</th>"
-                f"<th>multiplied by {html.escape(repr(self.scale))}</th></tr>"
-                f"<tr><td style='vertical-align:top'>{_html(self.before)}</td>"
-                f"<td style='vertical-align:top'>{_html(self.after)}</td></tr></table>"
-            )
-        return out + "</div>"
-
-    def _repr_mimebundle_(self, include: Any = None, exclude: Any = None) -> dict[str, str]:
-        return {"text/plain": str(self), "text/html": self._repr_html_()}
-
-
-def _text(result: Any) -> str:
-    return str(result)
-
-
-def _html(result: Any) -> str:
-    render = getattr(result, "_repr_html_", None)
-    if callable(render):
-        return str(render())
-    return f"<pre>{html.escape(str(result))}</pre>"
 
 
 def _survey(arr: np.ndarray) -> tuple[float, int, int]:
@@ -202,7 +146,7 @@ def suggest_scale(
         scale_q, exponent, message = Fraction(1), 0, f"{what}: no amax to scale by; scale 1"
     else:
         ideal = target / Fraction(amax)
-        e = _floor_log2(ideal)
+        e = floor_log2(ideal)
         capped = ""
         if e > _F64_MAX_EXP or e < _F64_MIN_EXP:
             e = min(max(e, _F64_MIN_EXP), _F64_MAX_EXP)

@@ -42,15 +42,15 @@ a whole number of blocks, reshaped to ``(..., blocks, block_size)`` and reduced 
 
 from __future__ import annotations
 
-import html
 from dataclasses import dataclass, field
 from typing import Any, Mapping
 
 import numpy as np
 
+from ..display import Displayable
 from ..errors import BitprismError
-from ..formats import Format, get_format
-from ..numerics.codes import decode, encode
+from ..formats import Format, format_key, get_format
+from ..numerics.codes import decode, encode_with
 from ..numerics.options import CastOptions, Rounding
 
 __all__ = [
@@ -119,6 +119,10 @@ class MXFormat:
     def __str__(self) -> str:
         return self.name
 
+    def __format__(self, spec: str) -> str:
+        """Formatted like its name (``f"{fmt:14}"`` pads it as it pads a string)."""
+        return format(self.name, spec)
+
 
 def _mx(name: str, element: str | None) -> MXFormat:
     if element is None:
@@ -147,14 +151,14 @@ def get_mx_format(spec: str | MXFormat) -> MXFormat:
     if isinstance(spec, MXFormat):
         return spec
     if isinstance(spec, str):
-        key = spec.strip().lower().replace("-", "_")
+        key = format_key(spec)
         if key in MX_FORMATS:
             return MX_FORMATS[key]
     raise BitprismError(f"fmt must be one of {', '.join(MX_FORMATS)}; got {spec!r}")
 
 
 @dataclass(frozen=True, eq=False)
-class MXResult:
+class MXResult(Displayable):
     """A tensor converted to an MX format: E8M0 scales, element codes and the values they mean.
 
     Attributes:
@@ -170,7 +174,8 @@ class MXResult:
         clamped: elements whose ratio ``|V_i / X|`` exceeded the element's largest normal.
         flushed: nonzero finite inputs that became zero.
         nan_blocks: blocks whose scale is NaN (NaN/Inf inside, or a shared exponent above 127).
-        rounding: the rounding direction used.
+        options: the cast options of the elements (rounding direction and seed; overflow is
+            always the §6.3 clamp, subnormals are kept).
     """
 
     format: MXFormat
@@ -183,35 +188,17 @@ class MXResult:
     clamped: int
     flushed: int
     nan_blocks: int
-    rounding: str = "roundTiesToEven"
+    options: CastOptions = field(default_factory=lambda: CastOptions("roundTiesToEven", "saturate"))
     shape: tuple[int, ...] = field(default=())
 
     @property
     def blocks(self) -> int:
         return int(self.scales.size)
 
-    def _rows(self) -> list[tuple[str, str]]:
-        short = (
-            f"yes, {self.short_last_block} of {self.block_size} elements"
-            if self.short_last_block
-            else "no"
-        )
-        return [
-            ("format", self.format.describe()),
-            ("shape", "x".join(str(d) for d in self.shape) or "()"),
-            ("axis", str(self.axis)),
-            ("blocks", f"{self.blocks} of {self.block_size}"),
-            ("short last block", short),
-            ("rounding", self.rounding),
-            ("clamped to max normal", str(self.clamped)),
-            ("flushed to zero", str(self.flushed)),
-            ("NaN scale (0xFF) blocks", str(self.nan_blocks)),
-        ]
-
-    def __str__(self) -> str:
-        rows = self._rows()
-        width = max(len(k) for k, _ in rows)
-        return "\n".join(f"{k:<{width}}  {v}" for k, v in rows)
+    @property
+    def rounding(self) -> str:
+        """The rounding direction of the elements."""
+        return self.options.rounding
 
     def __repr__(self) -> str:
         return (
@@ -221,16 +208,6 @@ class MXResult:
 
     def _repr_pretty_(self, p: Any, cycle: bool) -> None:
         p.text(str(self))
-
-    def _repr_html_(self) -> str:
-        body = "".join(
-            f"<tr><th style='text-align:left'>{html.escape(k)}</th><td>{html.escape(v)}</td></tr>"
-            for k, v in self._rows()
-        )
-        return f"<table class='bitprism-mx'>{body}</table>"
-
-    def _repr_mimebundle_(self, include: Any = None, exclude: Any = None) -> dict[str, str]:
-        return {"text/plain": str(self), "text/html": self._repr_html_()}
 
 
 def _as_float64(data: Any) -> np.ndarray:
@@ -339,16 +316,14 @@ def mx_quantize(
     ratio = np.clip(ratio, -limit, limit)
     ratio = np.where(nan_scale[..., None], 0.0, ratio)
     if mx.element is None:
-        rng = np.random.default_rng(seed) if options.rounding == "stochastic" else None
+        rng = np.random.default_rng(options.seed) if options.rounding == "stochastic" else None
         ints = _round_int(np.ldexp(ratio, _INT8_FRACTION_BITS), options.rounding, rng)
         ints = np.clip(ints, -_INT8_MAX, _INT8_MAX).astype(np.int64)
         codes = (ints & 0xFF).astype(np.uint8)
         elem_values = np.ldexp(ints.astype(np.float64), -_INT8_FRACTION_BITS)
         # an int8 has no negative zero: -0.0 inputs come back as +0
     else:
-        codes = np.asarray(
-            encode(ratio, mx.element, options.rounding, "saturate", "keep", seed)
-        ).astype(np.uint8)
+        codes = np.asarray(encode_with(ratio, mx.element, options)).astype(np.uint8)
         elem_values = np.asarray(decode(codes, mx.element), dtype=np.float64)
     values = np.ldexp(elem_values, shared[..., None].astype(np.int32))
     values = np.where(nan_scale[..., None], np.nan, values)
@@ -371,7 +346,7 @@ def mx_quantize(
         clamped=int(clamped_mask.sum()),
         flushed=int(flushed_mask.sum()),
         nan_blocks=int(nan_scale.sum()),
-        rounding=options.rounding,
+        options=options,
         shape=tuple(arr.shape),
     )
 

@@ -32,9 +32,10 @@ import numpy as np
 
 from ..errors import BitprismError, ParseError, UnsupportedInputError
 from ..formats import Format, get_format
-from ..numerics.codes import decode, encode
+from ..numerics.codes import decode, encode_with
 from ..numerics.inspect import CodeClass, fields, ulp
-from ..numerics.options import CastOptions
+from ..numerics.options import CastOptions, child_seed
+from ..numerics.thresholds import cast_thresholds
 from .adapters import as_array
 
 __all__ = [
@@ -162,11 +163,10 @@ class CastCells:
 
 
 def _over_thresholds(fmt: Format, options: CastOptions) -> tuple[float, float, float, float]:
-    """(overflow_from, nonzero_from) for positive then negative inputs: the magnitudes scan uses."""
-    from .scan import _thresholds  # one definition of overflow/underflow for scan and window
-
-    pos = _thresholds(fmt, options, False)
-    neg = _thresholds(fmt, options, True) if fmt.signed else pos
+    """(overflow_from, nonzero_from) for positive then negative inputs: the magnitudes scan
+    counts with (one definition of overflow and underflow for scan and window)."""
+    pos = cast_thresholds(fmt, options, False)
+    neg = cast_thresholds(fmt, options, True) if fmt.signed else pos
     return pos.overflow_from, pos.nonzero_from, neg.overflow_from, neg.nonzero_from
 
 
@@ -187,11 +187,16 @@ def _underflow_mask(x: np.ndarray, fmt: Format, options: CastOptions) -> np.ndar
     return m
 
 
-def cast_cells(raw: np.ndarray, fmt: Format, options: CastOptions, seed: int | None = None) -> CastCells:
-    """Cast raw data (any supported dtype) to ``fmt`` and classify every cell."""
+def cast_cells(raw: np.ndarray, fmt: Format, options: CastOptions, part: int | None = None) -> CastCells:
+    """Cast raw data (any supported dtype) to ``fmt`` and classify every cell. ``part``: the
+    position of this piece of the tensor, from which stochastic rounding derives its seed
+    (``numerics.options.child_seed``); None draws from ``options.seed`` itself."""
     x = values_of(raw)
-    codes = encode(raw, fmt, options.rounding, options.overflow, options.subnormals,
-                   seed if seed is not None else options.seed)
+    rng = None
+    if options.rounding == "stochastic":
+        seed = options.seed if part is None else child_seed(options.seed, part)
+        rng = np.random.default_rng(seed)
+    codes = encode_with(raw, fmt, options, rng=rng)
     q = decode(codes, fmt)
     res_kind = np.asarray(fields(codes, fmt).kind)
     finite_in = np.isfinite(x)
@@ -364,10 +369,13 @@ def make_window(
     elif row_axis > col_axis:
         win = win.T
     raw = np.ascontiguousarray(win)
-    seed = options.seed
+    origin = list(fixed)
+    if row_axis is not None:
+        origin[row_axis] = row0
+    origin[col_axis] = col0
+    part = flat_index(origin, shape)  # stochastic draws depend on where the window sits
     casts = tuple(
-        cast_cells(raw, get_format(f), options,  # type: ignore[arg-type]
-                   None if seed is None else seed + row0 * 1_000_003 + col0)
+        cast_cells(raw, get_format(f), options, part)  # type: ignore[arg-type]
         for f in formats
     )
     return Window(shape, row_axis, col_axis, fixed, int(row0), int(col0), raw, values_of(raw),
@@ -397,13 +405,6 @@ def flat_index(index: Sequence[int], shape: Sequence[int]) -> int:
     return int(np.ravel_multi_index(tuple(int(i) for i in index), tuple(shape)))
 
 
-def _chunk_seed(seed: int | None, chunk: int) -> int | None:
-    if seed is None:
-        return None
-    ss = np.random.SeedSequence(entropy=seed, spawn_key=(chunk,))
-    return int(ss.generate_state(1, np.uint64)[0] >> np.uint64(1))
-
-
 def _kind_mask(kind: str, raw: np.ndarray, fmt: Format | None, options: CastOptions,
                unit: str, target: float | None, chunk: int) -> np.ndarray:
     if raw.dtype.kind in "iub":
@@ -418,7 +419,7 @@ def _kind_mask(kind: str, raw: np.ndarray, fmt: Format | None, options: CastOpti
         return _overflow_mask(values_of(raw), fmt, options)
     if kind == "underflow" and options.rounding != "stochastic":
         return _underflow_mask(values_of(raw), fmt, options)
-    c = cast_cells(raw, fmt, options, _chunk_seed(options.seed, chunk))
+    c = cast_cells(raw, fmt, options, chunk)
     if kind == "overflow":
         return c.kinds == _CAST["overflow"]
     if kind == "underflow":
@@ -474,7 +475,7 @@ def largest_error(arr: np.ndarray, fmt: object, options: CastOptions,
     count = 0
     n = arr.size
     for c, s, e in _chunks(n, 0, n, False):
-        err = cast_cells(read_flat(arr, s, e), f, options, _chunk_seed(options.seed, c)).error(unit)
+        err = cast_cells(read_flat(arr, s, e), f, options, c).error(unit)
         if not np.isfinite(err).any():
             continue
         m = float(np.nanmax(err))

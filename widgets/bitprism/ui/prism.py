@@ -19,10 +19,11 @@ from traitlets import Bool, Int, List, TraitError, Unicode, observe, validate
 from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError, ParseError
 from ..formats import FORMATS, Format, get_format
-from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare
+from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare_exact
 from ..numerics.decimal_text import exact_text
 from ..numerics.exact import ExactValue, as_exact
-from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
+from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, check_option
+from ..numerics.parse import parse, parse_bits
 from ..numerics.scalar import decode_exact
 from ..render.compare_html import (
     aligned_html,
@@ -31,8 +32,10 @@ from ..render.compare_html import (
     header_html,
 )
 from ..render.palette import button_colors
+from ..render.widget_html import message_html
 from . import prism_case
 from .case_file import CaseFileMixin
+from .cast_settings import CastSettings
 
 __all__ = ["Prism"]
 
@@ -112,7 +115,7 @@ class _Band:
         self.implicit.description = "0" if kind in (0, 1) else ("1" if kind == 2 else "·")
 
 
-class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
+class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     """One value refracted into several formats: bit tiles, fields, stored value, errors.
 
     ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
@@ -143,6 +146,7 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
 
     def __init__(self, value: Any = "0.1", formats: Any = None, **kwargs: Any) -> None:
         self._suspend = 0
+        self._exact: tuple[str, ExactValue] | None = None  # the value trait's text, parsed
         self._bands: list[_Band] = []
         self._band_formats: list[Format] = []
         self._bit_layout = W.Layout(width="22px", height="22px", padding="0", margin="0 1px")
@@ -226,19 +230,31 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
         ]
 
     # ----- validation ------------------------------------------------------------------------
+    def _read(self, text: str) -> ExactValue:
+        """The exact value of ``text``, parsed once and then kept beside it: Enter, the
+        validation and the refresh that follow all read the same text."""
+        key = text.strip()
+        if self._exact is None or self._exact[0] != key:
+            self._exact = (key, parse(text))
+        return self._exact[1]
+
+    def _keep_exact(self, x: ExactValue) -> str:
+        """Remember ``x`` under its exact text (what the value trait then holds)."""
+        text = exact_text(x)
+        self._exact = (text, x)
+        return text
+
     @validate("value")
     def _valid_value(self, proposal: Any) -> str:
         v = proposal["value"]
         if isinstance(v, str):
-            from ..numerics.parse import parse
-
             try:
-                parse(v)
+                self._read(v)
             except ParseError as exc:
                 raise TraitError(f"value {v!r} is not a number: {message_for(exc)}") from exc
             return v.strip()
         try:
-            return exact_text(as_exact(v))
+            return self._keep_exact(as_exact(v))
         except BitprismError as exc:
             raise TraitError(str(exc)) from exc
 
@@ -261,13 +277,10 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
 
     @validate("rounding", "overflow", "subnormals")
     def _valid_option(self, proposal: Any) -> str:
-        name = proposal["trait"].name
-        kwargs = {name: proposal["value"]}
         try:
-            opts = CastOptions(**kwargs)
+            return check_option(proposal["trait"].name, proposal["value"])
         except BitprismError as exc:
             raise TraitError(str(exc)) from exc
-        return str(getattr(opts, name))
 
     @validate("via", "source_format")
     def _valid_format_name(self, proposal: Any) -> str:
@@ -291,10 +304,6 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
     def _on_trait(self, change: Any) -> None:
         self._refresh()
 
-    @property
-    def format_objects(self) -> list[Format]:
-        return [get_format(f) for f in self.formats]
-
     def _refresh(self) -> None:
         """The one path from traits to what is shown."""
         if self._suspend:
@@ -306,15 +315,13 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
                 pin_fmt = next((f for f in fmts if f.name == self.source_format), None)
                 if pin_fmt is not None:
                     pinned = (pin_fmt, self.source_code)
-            c = compare(
+            c = compare_exact(
+                self._read(self.value),
                 self.value,
                 fmts,
-                rounding=self.rounding,  # type: ignore[arg-type]
-                overflow=self.overflow,  # type: ignore[arg-type]
-                subnormals=self.subnormals,  # type: ignore[arg-type]
-                seed=self.seed,
-                via=self.via or None,
-                pinned=pinned,
+                self.options,
+                get_format(self.via) if self.via else None,
+                pinned,
             )
         except Exception as exc:  # keep the last good view, say what went wrong
             self.message = message_for(exc)
@@ -369,13 +376,8 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
         from ..numerics.evaluate import evaluate
 
         try:
-            evs = [
-                evaluate(
-                    self.expression, f, rounding=self.rounding, overflow=self.overflow,
-                    subnormals=self.subnormals, seed=self.seed,
-                )
-                for f in self.format_objects
-            ]
+            options = self.options
+            evs = [evaluate(self.expression, f, options=options) for f in self.format_objects]
         except Exception as exc:
             self.message = message_for(exc)
             return
@@ -383,12 +385,7 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
 
     @observe("message")
     def _on_message(self, change: Any) -> None:
-        from html import escape
-
-        text = change["new"]
-        self.message_html.value = (
-            f'<div style="color:#b00020;font-weight:bold">{escape(text)}</div>' if text else ""
-        )
+        self.message_html.value = message_html(change["new"])
 
     # ----- callbacks -------------------------------------------------------------------------
     @guarded
@@ -398,11 +395,9 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
         self.submit_value(change["new"])
 
     def submit_value(self, text: str) -> None:
-        """What Enter in the value box does: parse, and on error keep the last view."""
-        from ..numerics.parse import parse
-
+        """What Enter in the value box does: parse (once), and on error keep the last view."""
         try:
-            parse(text)
+            self._read(text)
         except ParseError as exc:
             self.message = message_for(exc)
             return
@@ -419,8 +414,6 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
 
     def submit_bits(self, text: str, fmt: Any) -> None:
         """Set one band's raw bit pattern; the others follow from its exact value."""
-        from ..numerics.parse import parse_bits
-
         f = get_format(fmt)
         try:
             code = parse_bits(text, f)
@@ -437,7 +430,7 @@ class Prism(BatchedRefresh, CaseFileMixin, W.VBox):
             raise BitprismError(f"format {f.name!r} is not shown in this Prism")
         x: ExactValue = decode_exact(code, f)
         with self._bulk():
-            self.value = exact_text(x)
+            self.value = self._keep_exact(x)
             self.source_format = f.name
             self.source_code = code
 

@@ -20,7 +20,8 @@ from typing import Any
 
 from ..errors import ParseError
 from ..formats import FORMATS, Format
-from .case_file import (
+from ..render.widget_html import snapshot_html
+from .case_codecs import (
     MAX_FORMATS,
     MAX_TEXT_CHARS,
     CaseFieldError,
@@ -148,12 +149,5 @@ def _report_drift(prism: Any, fmts: list[Format], codes: list[int] | None) -> No
 def prism_static_html(prism: Any) -> str:
     if prism.comparison is None:
         return ""
-    parts = []
-    if prism.message:
-        from html import escape
-
-        parts.append(f'<div style="color:#b00020;font-weight:bold">{escape(prism.message)}</div>')
-    parts.append(prism.to_html())
-    if prism.expression.strip():
-        parts.append(prism.evaluation_html.value)
-    return "".join(parts)
+    evaluation = prism.evaluation_html.value if prism.expression.strip() else ""
+    return snapshot_html(prism.message, prism.to_html(), evaluation)

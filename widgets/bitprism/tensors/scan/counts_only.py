@@ -9,7 +9,7 @@ difference of two G values, and the input's own classes (zero, subnormal, Inf, N
 ("where") come from an early-exit search of only the chunks whose counts say they hold some,
 so a single NaN at the end of a large tensor costs no extra pass.
 
-Used by ``scan._scan_block`` when the scan is counts-only, every format is a plain,
+Used by ``block.scan_block`` when the scan is counts-only, every format is a plain,
 sign-symmetric one and numba is installed; anything else takes the general path. Tests hold
 the two paths equal.
 """
@@ -19,29 +19,25 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from functools import lru_cache
-from typing import TYPE_CHECKING, Iterator
+from typing import Iterator
 
 import numpy as np
 
-from ..formats import get_format
+from ...formats import get_format
+from ...numerics.thresholds import pattern_at_least
+from .compiled.pattern_counts import BlockCounts, block_counts, range_positions
 from .partials import EXP_OFFSET, EXP_SLOTS, BlockPartial, FormatPartial, InputPartial
-from .pattern_counts import BlockCounts, block_counts, compiled_available, range_positions
-
-if TYPE_CHECKING:
-    from .scan import _Locator, _Spec
+from .plan import Locator, ScanPlan
 
 __all__ = ["count_block", "eligible"]
 
-COMPILED_MIN = 1 << 15  # smaller pieces stay on numpy (no compile for a handful of values)
-PIECE = 1 << 18  # elements converted to the carrier at a time (other input dtypes, scale)
 
-
-def eligible(spec: "_Spec") -> bool:
+def eligible(spec: ScanPlan) -> bool:
     """True when ``count_block`` computes this spec's block partials: a counts-only scan of
     plain, sign-symmetric formats, with the compiled kernel (numpy alone needs a pass per cut
     here, slower than the general path's exponent-histogram shortcuts)."""
     return (
-        compiled_available()
+        spec.tuning.uses_compiled
         and spec.mode is False
         and spec.targets is None
         and not spec.hooks
@@ -50,7 +46,7 @@ def eligible(spec: "_Spec") -> bool:
 
 
 @dataclass(frozen=True)
-class _Plan:
+class _Cuts:
     """What a counts-only scan compares with, in the carrier's bit patterns."""
 
     dtype: np.dtype  # uint32 (float32 carrier) or uint64 (float64)
@@ -63,9 +59,7 @@ class _Plan:
 
 
 @lru_cache(maxsize=64)
-def _plan(spec: "_Spec", input_dtype: np.dtype) -> _Plan:
-    from .scan import _pattern
-
+def _cuts(spec: ScanPlan, input_dtype: np.dtype) -> _Cuts:
     wide = not spec.carrier32
     dt, t = (np.dtype(np.uint64), 52) if wide else (np.dtype(np.uint32), 23)
     width = dt.itemsize * 8
@@ -73,26 +67,26 @@ def _plan(spec: "_Spec", input_dtype: np.dtype) -> _Plan:
     if spec.exponents or spec.scale is not None or input_dtype.kind in "iub":
         p_sub = 1 << t  # the carrier's smallest normal; the histogram tells the rest
     else:
-        p_sub = _pattern(float(get_format(input_dtype).smallest_normal), wide)
+        p_sub = pattern_at_least(float(get_format(input_dtype).smallest_normal), wide)
     cuts = {1, inf, inf + 1, p_sub}
     entries = []
     for e in spec.entries:
         assert e.pos is not None and e.fmt is not None  # eligible(): plain, symmetric
-        po = _pattern(e.pos.overflow_from, wide)
-        pz = _pattern(e.pos.nonzero_from, wide) if e.fmt.has_zero else None
-        pn = _pattern(e.pos.normal_from, wide) if e.fmt.has_zero else None
+        po = pattern_at_least(e.pos.overflow_from, wide)
+        pz = pattern_at_least(e.pos.nonzero_from, wide) if e.fmt.has_zero else None
+        pn = pattern_at_least(e.pos.normal_from, wide) if e.fmt.has_zero else None
         subs = e.fmt.has_subnormals and spec.options.subnormals != "flush"
         entries.append((po, pz, pn, subs))
         cuts.update(p for p in (po, pz, pn) if p is not None)
     ordered = sorted(cuts)
     arr = np.array(ordered, dt)
     arr.setflags(write=False)
-    return _Plan(dt, t, arr, {p: k for k, p in enumerate(ordered)}, inf, p_sub, tuple(entries))
+    return _Cuts(dt, t, arr, {p: k for k, p in enumerate(ordered)}, inf, p_sub, tuple(entries))
 
 
-def _pieces(flat: np.ndarray, spec: "_Spec") -> Iterator[tuple[int, np.ndarray]]:
+def _pieces(flat: np.ndarray, spec: ScanPlan) -> Iterator[tuple[int, np.ndarray]]:
     """(offset, carrier bit patterns) of the block: the block itself when the data already is
-    the carrier, else converted ``PIECE`` elements at a time (memory stays small)."""
+    the carrier, else converted ``tuning.convert_piece`` elements at a time (memory stays small)."""
     if spec.carrier32 and flat.dtype == np.float32:
         yield 0, np.ascontiguousarray(flat).view(np.uint32)
         return
@@ -100,9 +94,10 @@ def _pieces(flat: np.ndarray, spec: "_Spec") -> Iterator[tuple[int, np.ndarray]]
         yield 0, np.ascontiguousarray(flat).view(np.uint64)
         return
     carrier = np.float32 if spec.carrier32 else np.float64
-    buf = np.empty(min(PIECE, flat.size), carrier)
-    for at in range(0, flat.size, PIECE):
-        x = buf[: min(PIECE, flat.size - at)]
+    piece = spec.tuning.convert_piece
+    buf = np.empty(min(piece, flat.size), carrier)
+    for at in range(0, flat.size, piece):
+        x = buf[: min(piece, flat.size - at)]
         np.copyto(x, flat[at : at + x.size], casting="unsafe")  # exact: the carrier holds it
         if spec.scale is not None:
             with np.errstate(over="ignore"):  # beyond float64: Inf, as the cast sees it
@@ -114,10 +109,10 @@ def _value(pattern: int, dtype: np.dtype) -> float:
     return float(np.array([pattern], dtype).view(np.float32 if dtype.itemsize == 4 else np.float64)[0])
 
 
-def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartial:
+def count_block(flat: np.ndarray, loc: Locator, spec: ScanPlan) -> BlockPartial:
     """Partial result of one block of a counts-only scan (``eligible(spec)`` must hold)."""
     flat = flat.reshape(-1)
-    plan = _plan(spec, flat.dtype)
+    plan = _cuts(spec, flat.dtype)
     inf, dt = plan.inf, plan.dtype
     sign = 1 << (dt.itemsize * 8 - 1)
     limit = spec.limit
@@ -132,7 +127,7 @@ def count_block(flat: np.ndarray, loc: "_Locator", spec: "_Spec") -> BlockPartia
     lo, hi = math.inf, -math.inf
     exps: np.ndarray | None = None
     for at, bits in _pieces(flat, spec):
-        compiled = bits.size >= COMPILED_MIN
+        compiled = bits.size >= spec.tuning.compiled_min
         bc = block_counts(bits, plan.t, plan.cuts, spec.exponents, compiled=compiled)
         g = bc.at_least
         ix = plan.index

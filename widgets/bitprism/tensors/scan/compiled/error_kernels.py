@@ -22,16 +22,11 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .partials import REL_BASE, REL_BINS, REL_SHIFT
-from .pattern_counts import compiled_available, make_jit, with_kernels
-from .sub_ranges import LOG_BITS
+from ..partials import REL_BASE, REL_BINS, REL_SHIFT
+from ..sub_ranges import LOG_BITS
+from .jit import make_jit, with_kernels
 
-__all__ = ["CodeErrors", "available", "bucket_rel", "measure_codes", "range_counts", "range_values"]
-
-
-def available() -> bool:
-    """True when the compiled loops are used (the same switch as the counting kernel)."""
-    return compiled_available()
+__all__ = ["CodeErrors", "bucket_rel", "measure_codes", "range_counts", "range_values"]
 
 
 @dataclass(frozen=True)

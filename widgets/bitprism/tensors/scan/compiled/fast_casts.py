@@ -28,18 +28,18 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..formats import Format, get_format
-from ..numerics.options import CastOptions
-from .pattern_counts import compiled_available, make_jit
+from ....formats import Format, get_format
+from ....numerics.options import CastOptions
+from .jit import make_jit
 
 __all__ = ["cast16", "eligible"]
 
 
 def eligible(fmt: Format, options: CastOptions) -> bool:
-    """True when ``cast16`` casts float32 into ``fmt`` with ``options``."""
+    """True when ``cast16`` casts float32 into ``fmt`` with ``options`` (the caller checks
+    that the compiled loops are in use)."""
     return (
-        compiled_available()
-        and _kind(fmt) is not None
+        _kind(fmt) is not None
         and options.rounding == "roundTiesToEven"
         and options.overflow == "standard"
         and options.subnormals == "keep"

@@ -20,15 +20,15 @@ numbers come from numpy. Tests hold the two equal on every kind of pattern.
 
 from __future__ import annotations
 
-import os
-import types
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any, Callable
 
 import numpy as np
 
-__all__ = ["BlockCounts", "block_counts", "compiled_available", "first_positions", "range_positions"]
+from .jit import available, make_jit, with_kernels
+
+__all__ = ["BlockCounts", "block_counts", "first_positions", "range_positions"]
 
 CHUNK = 4096  # elements per cache-resident chunk of the compiled kernel (counters fit int16)
 # key(a) = floor(a / 2^s) + ceil(a / 2^s) of a magnitude pattern fits the signed integer of
@@ -68,21 +68,9 @@ class BlockCounts:
     chunk_at_least: np.ndarray | None = None
 
 
-def compiled_available() -> bool:
-    """True when the numba kernel is in use (numba importable, not disabled by
-    ``BITPRISM_NUMBA=0``)."""
-    return _kernels() is not None
-
-
-@lru_cache(maxsize=1)
 def _kernels() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]] | None:
-    if os.environ.get("BITPRISM_NUMBA", "1").strip().lower() in ("0", "false", "no", "off"):
-        return None
-    try:
-        import numba  # noqa: F401
-    except ImportError:
-        return None
-    return _compile()
+    """The compiled kernels, or None when numba is not in use."""
+    return _compile() if available() else None
 
 
 def _constants(dtype: np.dtype, t: int) -> np.ndarray:
@@ -229,47 +217,13 @@ def range_positions(
     return [out[r, : found[r]].copy() for r in range(len(ranges))]
 
 
-def _probe(x: int) -> int:
-    """Decorated (never called) to learn whether numba's on-disk cache can be used."""
-    return x
-
-
-def make_jit(**options: Any) -> Any:
-    """numba's ``njit`` as every bitprism kernel uses it: without the GIL and bounds checks,
-    cached on disk where numba can write (beside the module, or in a per-user folder), else
-    compiled in every process; ``options`` go to ``njit`` too. Only call it when
-    ``compiled_available()``."""
-    from numba import njit
-
-    try:
-        jit = njit(nogil=True, cache=True, boundscheck=False, **options)
-        jit(_probe)
-    except RuntimeError:  # nowhere writable
-        jit = njit(nogil=True, cache=False, boundscheck=False, **options)
-    return jit
-
-
-def with_kernels(fn: Callable[..., Any], **kernels: Callable[..., Any]) -> Callable[..., Any]:
-    """``fn`` (before ``jit``) with ``kernels`` among its global names. A kernel must reach the
-    compiled kernels it calls there, not in a closure: numba's on-disk cache key hashes the
-    closure's values, and a compiled kernel pickles with an id drawn afresh in every process,
-    so a closure over one missed the cache in every process (seconds of compiling, and one
-    more cache file each time)."""
-    names = dict(fn.__globals__)
-    names.update(kernels)
-    out = types.FunctionType(fn.__code__, names, fn.__name__, fn.__defaults__, fn.__closure__)
-    out.__qualname__ = fn.__qualname__
-    out.__module__ = fn.__module__
-    out.__doc__ = fn.__doc__
-    return out
-
-
 # the compiled kernels that other kernels call, bound by ``with_kernels`` where they are made
 _first_pass: Callable[..., Any]
 _count_keys: Callable[..., Any]
 _count_wide: Callable[..., Any]
 
 
+@lru_cache(maxsize=1)
 def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]]:
     """Build the numba kernels, one pair per pattern dtype."""
     jit = make_jit()

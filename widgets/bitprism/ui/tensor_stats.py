@@ -1,0 +1,107 @@
+"""Whole-tensor figures of a ``TensorPrism``: the summary scan and the counts its find buttons
+show, cached per version of the data (``token``) so that a pan never rescans the tensor.
+
+Only one summary is kept (tensors can be large); its counts of NaN, Inf, overflow and
+underflow also fill the count cache, so the find buttons need no scan of their own.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+import numpy as np
+
+from ..formats import Format, get_format
+from ..numerics.options import CastOptions
+from ..tensors.scan import ScanResult, ScanTuning, scan
+from ..tensors.window import count_kinds, largest_error
+
+__all__ = ["TensorStats", "summary_target"]
+
+
+def summary_target(
+    arr: np.ndarray, scope: str, row_axis: int | None, col_axis: int, fixed: tuple[int, ...]
+) -> tuple[np.ndarray, tuple[tuple[int, int], ...]]:
+    """What the summary scans: the whole tensor, or the 2-D slice shown (with its
+    ``(axis, index)`` pairs)."""
+    if scope == "tensor" or arr.ndim <= 2:
+        return arr, ()
+    key: list[Any] = []
+    fixed = fixed or (0,) * arr.ndim
+    for ax in range(arr.ndim):
+        key.append(slice(None) if ax in (row_axis, col_axis) else fixed[ax])
+    return arr[tuple(key)], tuple(
+        (ax, fixed[ax]) for ax in range(arr.ndim) if ax not in (row_axis, col_axis))
+
+
+_TUNING = ScanTuning()
+
+
+class TensorStats:
+    """The cached summary scan, per-kind counts and largest errors of one widget's tensor."""
+
+    def __init__(self) -> None:
+        self._summary_cache: dict[Any, ScanResult] = {}
+        self._summary_key: Any = None
+        self._count_cache: dict[Any, int] = {}
+        self._largest_cache: dict[Any, tuple[float | None, int]] = {}
+
+    def summary(
+        self, token: int, arr: np.ndarray, formats: Sequence[Any], opts: CastOptions,
+        scope: str, quantiles: str, row_axis: int | None, col_axis: int, fixed: tuple[int, ...],
+    ) -> tuple[ScanResult, bool] | None:
+        """The summary scan for these settings and whether it holds counts only; ``None`` when
+        it is the one returned last time (nothing to show anew)."""
+        target, where = summary_target(arr, scope, row_axis, col_axis, fixed)
+        format_objects = [get_format(f) for f in formats]
+        q = quantiles
+        if q == "auto":
+            n = target.size
+            # exact while the scan keeps the values in one pass, a histogram while it would
+            # not show a progress bar, else counts only
+            q = "exact" if n <= _TUNING.keep_values else ("histogram" if n <= _TUNING.progress_min else "none")
+        if opts.rounding == "stochastic" and q == "none":
+            q = "histogram"
+        key = (token, tuple(f.name if isinstance(f, Format) else f for f in formats),
+               tuple(format_objects), opts, where, q)
+        if key == self._summary_key:
+            return None
+        if key not in self._summary_cache:
+            self._summary_cache.clear()  # one summary kept: tensors can be large
+            self._summary_cache[key] = scan(
+                target, format_objects, options=opts, progress=False,
+                quantiles=False if q == "none" else q,
+                exponents=True)  # the range chart draws the exponent histogram
+        self._summary_key = key
+        result = self._summary_cache[key]
+        if scope == "tensor" or arr.ndim <= 2:
+            for fs in result.formats:  # the scan's counts serve the navigation too
+                f = fs.format
+                for kind in ("nan", "inf", "overflow", "underflow"):
+                    ck = (token, kind, None if kind in ("nan", "inf") else f, opts)
+                    self._count_cache.setdefault(ck, getattr(fs, kind))
+        return result, q == "none"
+
+    def count(
+        self, token: int, arr: np.ndarray, kind: str, fmt: Format | None, opts: CastOptions
+    ) -> int:
+        """How many cells of ``arr`` are of ``kind`` (``fmt`` is None for NaN and Inf)."""
+        key = (token, kind, fmt, opts)
+        if key not in self._count_cache:
+            self._count_cache[key] = count_kinds(arr, fmt, opts, (kind,))[kind]
+        return self._count_cache[key]
+
+    def largest(
+        self, token: int, arr: np.ndarray, fmt: Format, opts: CastOptions, unit: str
+    ) -> tuple[float | None, int]:
+        """The largest finite cast error into ``fmt`` and how many cells have it."""
+        key = (token, fmt, opts, unit)
+        if key not in self._largest_cache:
+            self._largest_cache[key] = largest_error(arr, fmt, opts, unit)
+        return self._largest_cache[key]
+
+    def known_largest(
+        self, token: int, fmt: Format, opts: CastOptions, unit: str
+    ) -> tuple[float | None, int] | None:
+        """``largest(...)`` if it was already computed, else ``None`` (never scans)."""
+        return self._largest_cache.get((token, fmt, opts, unit))
