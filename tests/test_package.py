@@ -56,3 +56,14 @@ def test_ml_dtypes_is_imported_only_when_needed() -> None:
         "print(before, 'ml_dtypes' in sys.modules, dt)\n"
     )
     assert last_line_of(code) == "False True float8_e4m3fn"
+
+
+def test_packaging_metadata_uses_an_spdx_license_string() -> None:
+    # PEP 639 (license as an SPDX expression); setuptools 77+ reads it and warns that the older
+    # table form ({ text = ... }) stops working in February 2027
+    tomllib = __import__("pytest").importorskip("tomllib")
+    from pathlib import Path
+
+    meta = tomllib.loads((Path(__file__).resolve().parents[1] / "pyproject.toml").read_text())
+    assert meta["project"]["license"] == "Apache-2.0"
+    assert any(r.startswith("setuptools>=77") for r in meta["build-system"]["requires"])

@@ -7,6 +7,8 @@ dask reduction.
   compiled loops release the GIL), at most one block ahead, merged in order, so the
   "largest error" floors still come from lower positions and the result equals a one-thread
   scan. Block formats (user objects that may not be thread-safe) stay on the calling thread.
+  A memory-mapped input's pages are released after each block (``pages``), so the resident
+  set stays a few blocks however large the file.
 * ``run_dask``: one partial per dask chunk (``to_delayed``), then a tree of merges, on whatever
   scheduler is active (a ``distributed`` cluster included).
 """
@@ -23,6 +25,7 @@ import numpy as np
 
 from . import counts_only
 from .block import scan_block
+from .pages import PageRelease
 from .partials import BlockPartial, merge_blocks
 from .plan import Locator, ScanPlan
 
@@ -103,29 +106,32 @@ def run_numpy(arr: np.ndarray, plan: ScanPlan, bar: Any) -> BlockPartial | None:
         block = tuning.block
     if (plan.mode is False and not counting) or arr.size <= block:
         workers = 1
+    pages = PageRelease(arr)  # a memmap's pages leave the resident set after their block
     out: BlockPartial | None = None
     if workers == 1:
         for values, loc, seg in numpy_blocks(arr, plan, block):
             part = scan_block(values, loc, plan, seg, _floors(out, plan))
             out = part if out is None else out.merge(part)
+            pages.release(values)
             if bar is not None:
                 bar.update(values.size)
         return out
-    pending: deque[tuple[Future[BlockPartial], int]] = deque()
+    pending: deque[tuple[Future[BlockPartial], np.ndarray]] = deque()
 
     def take() -> None:
         nonlocal out
-        fut, k = pending.popleft()
+        fut, values = pending.popleft()
         part = fut.result()
         out = part if out is None else out.merge(part)
+        pages.release(values)
         if bar is not None:
-            bar.update(k)
+            bar.update(values.size)
 
     pool = _pool(workers)
     try:
         for values, loc, seg in numpy_blocks(arr, plan, block):
             fut = pool.submit(scan_block, values, loc, plan, seg, _floors(out, plan))
-            pending.append((fut, values.size))
+            pending.append((fut, values))
             if len(pending) > workers:
                 take()
         while pending:
