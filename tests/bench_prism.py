@@ -1,13 +1,15 @@
-"""Benchmark (a script, not a test): python tests/bench_prism.py
+"""Benchmark (a script, not a test): python tests/bench_prism.py [--write]
 
 Median Python-side time for a Prism to recompute and re-render every band after an input
 change (8 formats including float64), and the bytes one update sends to the front-end: the
 JSON of every widget state message emitted during the update (the changed widgets' changed
-traits), summed. Targets: < 15 ms and < 64 KB per update on 2 cores.
+traits), summed. Targets: < 15 ms and < 64 KB per update on 2 cores. With ``--write`` the
+printed lines also go to docs/benchmarks.md (``bench_report``).
 """
 
 from __future__ import annotations
 
+import argparse
 import json
 import statistics
 import time
@@ -15,6 +17,7 @@ from typing import Any
 
 from ipywidgets import Widget
 
+from bench_report import DEFAULT_PATH, Lines, write_section
 from bitprism.ui.prism import Prism
 
 FORMATS = ["float64", "float32", "tf32", "bfloat16", "float16", "float8_e4m3fn", "float8_e5m2",
@@ -32,6 +35,12 @@ def _recording_send(self: Widget, msg: Any, buffers: Any = None) -> None:
 
 
 def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--write", nargs="?", const=DEFAULT_PATH, default=None, metavar="PATH",
+                    help="also write what is printed to docs/benchmarks.md (or PATH), "
+                    "section bench_prism.py")
+    args = ap.parse_args()
+    report = Lines()
     Widget._send = _recording_send  # type: ignore[method-assign]
     p = Prism("1", formats=FORMATS)
     for v in VALUES[:3]:  # warm caches and imports
@@ -46,14 +55,16 @@ def main() -> None:
             times.append(time.perf_counter() - t0)
             sizes.append(sum(_sent))
             html_sizes.append(len(p.to_html().encode()))
-    print(f"formats: {', '.join(FORMATS)}")
-    print(f"updates timed: {len(times)}")
-    print(f"median recompute + re-render: {statistics.median(times) * 1e3:.2f} ms "
-          f"(p90 {sorted(times)[int(0.9 * len(times))] * 1e3:.2f} ms; target < 15 ms)")
-    print(f"bytes sent per update: median {statistics.median(sizes) / 1024:.1f} KB, "
-          f"max {max(sizes) / 1024:.1f} KB (target < 64 KB)")
-    print(f"static HTML snapshot: max {max(html_sizes) / 1024:.1f} KB")
+    report.print(f"formats: {', '.join(FORMATS)}")
+    report.print(f"updates timed: {len(times)}")
+    report.print(f"median recompute + re-render: {statistics.median(times) * 1e3:.2f} ms "
+                 f"(p90 {sorted(times)[int(0.9 * len(times))] * 1e3:.2f} ms; target < 15 ms)")
+    report.print(f"bytes sent per update: median {statistics.median(sizes) / 1024:.1f} KB, "
+                 f"max {max(sizes) / 1024:.1f} KB (target < 64 KB)")
+    report.print(f"static HTML snapshot: max {max(html_sizes) / 1024:.1f} KB")
     Widget._send = _original_send  # type: ignore[method-assign]
+    if args.write:
+        write_section("bench_prism.py", report, args.write)
 
 
 if __name__ == "__main__":

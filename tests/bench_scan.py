@@ -1,6 +1,6 @@
 """Benchmark of ``scan()`` against the loop an engineer would write by hand (a script, not a test).
 
-    PYTHONPATH=widgets python tests/bench_scan.py [--n 16777216] [--memmap]
+    PYTHONPATH=widgets python tests/bench_scan.py [--n 16777216] [--memmap] [--write]
 
 Prints, for 16M float32 elements spread over a wide exponent range (with NaN, Inf and zeros)
 and six formats in one run:
@@ -21,6 +21,7 @@ overflow / underflow counts, and ``np.quantile`` of the relative error of the fi
 Timings are interleaved (baseline, exact, histogram, counts, x.max() in turn, ``--repeat``
 rounds) and each ratio is the median of the per-round ratios, so load that comes and goes hits
 both sides of a ratio alike; the best times are printed too.
+With ``--write`` the printed lines also go to docs/benchmarks.md (``bench_report``).
 """
 
 from __future__ import annotations
@@ -41,6 +42,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "widgets"))
 
 from bitprism.tensors.scan import ScanTuning, scan  # noqa: E402
 from bitprism.tensors.scan.compiled.jit import available as compiled_available  # noqa: E402
+from bench_report import DEFAULT_PATH, Lines, write_section  # noqa: E402
 
 FORMATS = (
     "bfloat16",
@@ -142,10 +144,14 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=1 << 24)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--memmap", action="store_true", help="also scan a 2 GiB memmapped .npy")
+    ap.add_argument("--write", nargs="?", const=DEFAULT_PATH, default=None, metavar="PATH",
+                    help="also write what is printed to docs/benchmarks.md (or PATH), "
+                    "section bench_scan.py")
     args = ap.parse_args()
+    report = Lines()
 
     x = make_data(args.n)
-    print(f"{x.size:,} float32 elements ({x.nbytes / 2**20:.0f} MiB), formats: {', '.join(FORMATS)}")
+    report.print(f"{x.size:,} float32 elements ({x.nbytes / 2**20:.0f} MiB), formats: {', '.join(FORMATS)}")
     run = lambda **kw: scan(x, FORMATS, progress=False, **kw)  # noqa: E731
 
     variants = ("counts", "one thread", "exponents", "numpy")
@@ -168,11 +174,11 @@ def main() -> None:
     def ratio(a: str, b: str) -> float:
         return float(np.median([p / q for p, q in zip(runs[a], runs[b])]))
 
-    print(f"timings over {args.repeat} interleaved rounds (best time; ratio = median of per-round ratios)")
-    print(f"  baseline (ml_dtypes astype + counts + np.quantile): {min(runs['base']):8.3f} s")
-    print(f"  one streaming pass x.max():                        {min(runs['max']):8.4f} s")
-    print(f"  counting kernel: {'numba' if compiled_available() else 'numpy (numba not installed)'}, "
-          f"{threads} thread(s)")
+    report.print(f"timings over {args.repeat} interleaved rounds (best time; ratio = median of per-round ratios)")
+    report.print(f"  baseline (ml_dtypes astype + counts + np.quantile): {min(runs['base']):8.3f} s")
+    report.print(f"  one streaming pass x.max():                        {min(runs['max']):8.4f} s")
+    report.print(f"  counting kernel: {'numba' if compiled_available() else 'numpy (numba not installed)'}, "
+                 f"{threads} thread(s)")
     rows = (
         ("scan, exact quantiles", "exact", "base", 0.5),
         ("scan, histogram quantiles", "hist", "base", 0.25),
@@ -188,13 +194,13 @@ def main() -> None:
             verdict = "for information"
         else:
             verdict = f"target <= {target:g}: {'meets' if r <= target else 'misses'}"
-        print(f"  {label:27s} {min(runs[a]):8.4f} s  = {r:6.2f}x {versus:8s} ({verdict})")
+        report.print(f"  {label:27s} {min(runs[a]):8.4f} s  = {r:6.2f}x {versus:8s} ({verdict})")
     if sides:
-        print(f"  both halves at once on two threads took {ratio('pair', 'half'):.2f}x one half alone "
-              "(1.00: the cores ran side by side; 2.00: they shared their vector units)")
+        report.print(f"  both halves at once on two threads took {ratio('pair', 'half'):.2f}x one half alone "
+                     "(1.00: the cores ran side by side; 2.00: they shared their vector units)")
 
     # agreement with the baseline (counts and exact quantiles)
-    print("agreement with the baseline (exact quantiles must be equal, not close):")
+    report.print("agreement with the baseline (exact quantiles must be equal, not close):")
     ref = baseline(x)
     res = run(quantiles="exact")
     for name in FORMATS:
@@ -203,13 +209,13 @@ def main() -> None:
         if name.startswith(("float6", "float4")):
             ov = r.overflow  # no Inf/NaN: these saturate, which the baseline does not count
         ok = (r.overflow, r.underflow, r.rel_error_p50, r.rel_error_p99) == (ov, uf, p50, p99)
-        print(f"  {name:15s} overflow {r.overflow:>10,} underflow {r.underflow:>10,} "
-              f"p50 {r.rel_error_p50:.6g} p99 {r.rel_error_p99:.6g}  {'= baseline' if ok else 'DIFFERS'}")
+        report.print(f"  {name:15s} overflow {r.overflow:>10,} underflow {r.underflow:>10,} "
+                     f"p50 {r.rel_error_p50:.6g} p99 {r.rel_error_p99:.6g}  {'= baseline' if ok else 'DIFFERS'}")
 
     for mode in ("exact", "histogram", False):
         extra = peak_extra(lambda: run(quantiles=mode))
-        print(f"peak extra memory, quantiles={mode!r:11s}: {extra / 2**20:7.1f} MiB = "
-              f"{extra / x.nbytes:4.2f}x input (target <= 1.5)")
+        report.print(f"peak extra memory, quantiles={mode!r:11s}: {extra / 2**20:7.1f} MiB = "
+                     f"{extra / x.nbytes:4.2f}x input (target <= 1.5)")
     del x, res
 
     if args.memmap:
@@ -229,9 +235,12 @@ def main() -> None:
                 scan(big, FORMATS, progress=False, quantiles=mode)
                 took = time.perf_counter() - t
                 extra = peak_extra(lambda: scan(big, FORMATS, progress=False, quantiles=mode))
-                print(f"2 GiB memmap, quantiles={mode!r:11s}: {took:7.1f} s, "
-                      f"peak extra {extra / 2**20:6.1f} MiB (target < 512; a second scan, traced)")
+                report.print(f"2 GiB memmap, quantiles={mode!r:11s}: {took:7.1f} s, "
+                             f"peak extra {extra / 2**20:6.1f} MiB (target < 512; a second scan, traced)")
             del big
+
+    if args.write:
+        write_section("bench_scan.py", report, args.write)
 
 
 if __name__ == "__main__":

@@ -33,6 +33,8 @@ from numba.core.dispatcher import Dispatcher
 import bitprism as bp
 from bitprism.tensors.scan.compiled import error_kernels, fast_casts, pattern_counts
 
+# kernels first built on worker threads (8M elements: two blocks), where they once raced
+bp.scan(np.ones(1 << 23, np.float32), ["float16"], progress=False, quantiles=False)
 x = np.resize(np.array([0.0, -0.0, 1e-45, 3e-39, 1.5, -2.75, 65520.0, 1e30, np.inf, -np.inf, np.nan],
                       np.float32), 1 << 16)  # above the size that stays on numpy
 ro = x.copy()
@@ -50,7 +52,7 @@ print(json.dumps({k.py_func.__qualname__ + str(i): sum(k.stats.cache_misses.valu
 """
 
 
-def cache_misses(cache_dir: Path, user_wide: bool = False) -> dict[str, int]:
+def cache_misses(cache_dir: Path, user_wide: bool = False, cwd: Path | None = None) -> dict[str, int]:
     """Run CHILD with an empty cache folder: ``NUMBA_CACHE_DIR``, or (``user_wide``) the
     per-user folder bitprism chooses under ``XDG_CACHE_HOME``."""
     env = dict(os.environ, BITPRISM_NUMBA="1")
@@ -60,7 +62,7 @@ def cache_misses(cache_dir: Path, user_wide: bool = False) -> dict[str, int]:
     else:
         env["NUMBA_CACHE_DIR"] = str(cache_dir)
     done = subprocess.run([sys.executable, "-c", CHILD], env=env, capture_output=True, text=True,
-                          timeout=900)
+                          timeout=900, cwd=cwd)
     assert done.returncode == 0, done.stderr
     return json.loads(done.stdout.strip().splitlines()[-1])
 
@@ -85,9 +87,12 @@ def test_cache_lives_outside_the_package(tmp_path: Path) -> None:
     (XDG_CACHE_HOME/bitprism/numba here), never beside the package's source files, and a
     second process finds them there."""
     before = _package_cache_files()
-    first = cache_misses(tmp_path, user_wide=True)
+    cwd = tmp_path / "cwd"
+    cwd.mkdir()
+    first = cache_misses(tmp_path, user_wide=True, cwd=cwd)
     assert sum(first.values()) > 0
     assert any((tmp_path / "bitprism" / "numba").rglob("*.nbi"))
     assert _package_cache_files() == before
+    assert list(cwd.iterdir()) == []  # nothing in the folder the process ran in either
     second = cache_misses(tmp_path, user_wide=True)
     assert {k: n for k, n in second.items() if n} == {}

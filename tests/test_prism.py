@@ -27,7 +27,9 @@ def test_builds_bands_and_css_classes() -> None:
     assert len(p._bands) == 4 and all("bitprism-band" in b.box._dom_classes for b in p._bands)
     assert all("bitprism-bit" in b._dom_classes for b in _band(p, "float16").bits)
     assert len(_band(p, "float16").bits) == 16
-    assert p.comparison.row("float16").code == 0x2E66  # ref §1.4 RNE(1/10) in binary16
+    # binary16 0x2E66 = 819/8192 = roundTiesToEven(1/10) (IEEE 754-2008 Table 3.5 layout,
+    # §4.3.1; from library: numpy float16(0.1))
+    assert p.comparison.row("float16").code == 0x2E66
     bits = "".join(b.description for b in _band(p, "float16").bits)
     assert bits == format(0x2E66, "016b")
     assert "bitprism-band" in p._repr_mimebundle_()["text/html"]
@@ -37,7 +39,8 @@ def test_new_value_changes_bands() -> None:
     p = Prism("0.1", formats=FMTS)
     before = _band(p, "bfloat16").html.value
     p.value_input.value = "1/3"  # Enter in the text box (continuous_update=False)
-    assert p.value == "1/3" and p.comparison.row("bfloat16").code == 0x3EAB  # ref §9
+    # bfloat16 0x3EAB = 171/512 = roundTiesToEven(1/3) (from library: ml_dtypes 0.7 bfloat16)
+    assert p.value == "1/3" and p.comparison.row("bfloat16").code == 0x3EAB
     assert _band(p, "bfloat16").html.value != before
     p.value = np.float32(0.1)  # numbers are stored as exact text
     assert p.value == "0.100000001490116119384765625"
@@ -94,7 +97,9 @@ def test_option_dropdowns_change_codes() -> None:
     assert p.comparison.row("float16").code == 0x7BFF
     p.value = "1 + 2**-8 + 2**-30"
     p.rounding = "roundTiesToEven"
-    p.via_menu.value = "float32"  # double rounding: ref §8.1
+    # double rounding (from library: ml_dtypes 0.7): 1 + 2^-8 + 2^-30 -> bfloat16 directly
+    # 1.0078125, through float32 first 1.0
+    p.via_menu.value = "float32"
     assert p.via == "float32" and p.comparison.row("bfloat16").stored.value == 1
     p.subnormals_menu.value = "flush"
     p.value = "2**-20"

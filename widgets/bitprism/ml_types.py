@@ -1,6 +1,6 @@
 """ml_dtypes, imported on first use.
 
-Importing ml_dtypes took 0.8 s here (ml_dtypes 0.7, numpy 2.4; numpy itself 0.12 s), and
+Importing ml_dtypes takes several times as long as importing numpy (docs/benchmarks.md), and
 much of bitprism never needs it: values typed on the command line, float16/32/64 arrays and
 files. No array can hold one of its types before something imports it, so until then a dtype
 is known not to be one of them without importing it.

@@ -32,7 +32,17 @@ from .options import CastOptions
 from .rounding import effective_rounding
 from .scalar import nan_input_code, overflow_code
 
-__all__ = ["CHUNK", "encode_bits"]
+__all__ = [
+    "CHUNK",
+    "SOURCE32",
+    "SOURCE64",
+    "encode_bits",
+    "encode_table",
+    "source_for",
+    "table_codes",
+    "table_eligible",
+    "table_index",
+]
 
 CHUNK = 1 << 16
 
@@ -141,8 +151,8 @@ def _plan(src: _Source, fmt: Format, options: CastOptions) -> _Plan:
 class _Scratch:
     """Reusable per-call buffers so a long cast allocates a fixed amount once. Temporaries of
     a chunk's size are not free: the low-range correction of stochastic rounding made five,
-    and 16M float32 values took 257-287 ms into float16 with them against 134-140 ms with
-    ``e`` and ``m`` (nearest-even: 74-78 ms; interleaved runs in one process)."""
+    which nearly doubled the time of a stochastic cast into float16 against ``e`` and ``m``
+    (figures in docs/benchmarks.md)."""
 
     def __init__(self, uint: type, n: int, mode: str) -> None:
         self.a: np.ndarray = np.empty(n, uint)

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 from typing import Any
 
 __all__ = [
+    "COLUMNS",
     "ScanHeader",
     "block_nan_note",
     "fmt_count",

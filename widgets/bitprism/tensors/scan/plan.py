@@ -48,7 +48,7 @@ class ScanTuning:
     Attributes:
         block: elements per partial result on the general path.
         count_block, count_block_min: a counts-only block (one per thread) holds between these
-            many elements: its partial is tiny but costs about 0.3 ms of Python.
+            many elements: its partial is tiny but costs a fixed amount of Python work.
         piece: elements per cache-sized piece inside a block.
         copy_max: elements copied at a time from a strided input.
         keep_values: exact quantiles in one pass (values kept) up to this many elements.

@@ -5,9 +5,8 @@ each code, ``err = |q - x|`` with NaN (left out) set to 0, ``rel = err / |x|``, 
 left-out, exact, zero and subnormal results, the maxima, and the histogram of relative errors.
 numpy does that in about twenty passes over memory, three of them gathers and scatters it does
 slowly (``take``, ``rel_keys`` + ``bincount``). ``measure_codes`` does it in three loops
-(gathers; a branch-free one that vectorizes; maxima) and ``bucket_rel`` builds the histogram.
-Measured on 64K float32 elements cast to float8_e4m3fn, one core with AVX2: about 1050 us of
-numpy against 300 us plus 180 us for the histogram. Every number they produce is the same IEEE
+(gathers; a branch-free one that vectorizes; maxima) and ``bucket_rel`` builds the histogram,
+in a fraction of numpy's time (docs/benchmarks.md). Every number they produce is the same IEEE
 operation numpy does on the same operands, an integer count or a maximum, and the sums stay
 numpy's, so a scan gives the same result with and without numba; tests hold the two paths
 equal. ``range_values`` and ``range_counts`` do the selections of an exact-quantile refinement
@@ -17,14 +16,13 @@ pass (``sub_ranges``). ``BITPRISM_NUMBA=0`` or a missing numba uses numpy.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Any, Callable
 
 import numpy as np
 
 from ..partials import REL_BASE, REL_BINS, REL_SHIFT
 from ..sub_ranges import LOG_BITS
-from .jit import make_jit, with_kernels
+from .jit import built_once, make_jit, with_kernels
 
 __all__ = ["CodeErrors", "bucket_rel", "measure_codes", "range_counts", "range_values"]
 
@@ -105,7 +103,7 @@ _settle: Callable[..., Any]
 _maxima: Callable[..., Any]
 
 
-@lru_cache(maxsize=1)
+@built_once
 def _kernels() -> tuple[Callable[..., Any], ...]:
     jit = make_jit()
     fast_jit = make_jit(fastmath={"nnan"})  # maxima of NaN-free arrays: lets them vectorize

@@ -1,8 +1,8 @@
 """Compiled float32 -> float16 / bfloat16 casts for the scan (numba), default options only.
 
 A scan casts float32 data into every format; formats of up to 8 bits use the numerics
-kernel's table, but float16 and bfloat16 go through ``encode``, about 400 us per 64K elements
-on one AVX2 core, the largest single cost of a histogram scan after the error loops. With the
+kernel's table, but float16 and bfloat16 go through ``encode``, the largest single cost of a
+histogram scan after the error loops. With the
 default options (roundTiesToEven, overflow to Inf, subnormals kept) both casts are a few
 integer operations per element on the float32 pattern:
 
@@ -30,7 +30,7 @@ import numpy as np
 
 from ....formats import Format, get_format
 from ....numerics.options import CastOptions
-from .jit import make_jit
+from .jit import built_once, make_jit
 
 __all__ = ["cast16", "eligible"]
 
@@ -66,14 +66,14 @@ def _kind(fmt: Format) -> int | None:
     return None
 
 
-@lru_cache(maxsize=1)
+@built_once
 def _kernels() -> tuple[Callable[..., Any], Callable[..., Any]]:
     jit = make_jit()
     U = np.uint32
     H = np.uint16
 
     # every intermediate is cast back to 32 bits: numba widens integer arithmetic to 64 bits,
-    # which halves the vector lanes (measured: the float16 loop 122 -> 45 us per 64K)
+    # which halves the vector lanes (the float16 loop ran at less than half the speed)
 
     @jit
     def to_bfloat16(bits, out):  # type: ignore[no-untyped-def]

@@ -8,18 +8,27 @@
   no folder is writable, compiled in every process.
 * ``with_kernels()``: how a kernel reaches the kernels it calls (see its docstring: a closure
   would make numba's disk cache miss in every process).
+* ``built_once()``: a module's kernels are built by the first caller while the others wait
+  (scans run blocks on worker threads, which may all ask at once).
 """
 
 from __future__ import annotations
 
 import os
 import tempfile
+import threading
 import types
-from functools import lru_cache
+from functools import lru_cache, wraps
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, TypeVar
 
-__all__ = ["available", "cache_folder", "make_jit", "with_kernels"]
+__all__ = ["available", "built_once", "cache_folder", "make_jit", "with_kernels"]
+
+T = TypeVar("T")
+# Held while numba's cache folder setting is switched to ours and a function is decorated, and
+# while a module's kernels are built: the setting is process-wide, and a worker thread that
+# restored it between numba's two reads of it sent a cache into the current folder.
+_LOCK = threading.RLock()
 
 
 @lru_cache(maxsize=1)
@@ -64,6 +73,10 @@ def make_jit(**options: Any) -> Callable[[Callable[..., Any]], Any]:
     def jit(fn: Callable[..., Any]) -> Any:
         # numba picks a function's cache folder when it is decorated: point it at ours for
         # that moment only, so a user's own numba code keeps its settings
+        with _LOCK:
+            return _decorate(fn)
+
+    def _decorate(fn: Callable[..., Any]) -> Any:
         saved = settings.CACHE_DIR
         if folder is not None:
             settings.CACHE_DIR = str(folder)
@@ -90,3 +103,19 @@ def with_kernels(fn: Callable[..., Any], **kernels: Callable[..., Any]) -> Calla
     out.__module__ = fn.__module__
     out.__doc__ = fn.__doc__
     return out
+
+
+def built_once(build: Callable[[], T]) -> Callable[[], T]:
+    """``build()`` run by the first caller only, the result kept; concurrent callers wait for
+    it instead of compiling the same kernels twice."""
+    done: list[T] = []
+
+    @wraps(build)
+    def get() -> T:
+        if not done:
+            with _LOCK:
+                if not done:
+                    done.append(build())
+        return done[0]
+
+    return get

@@ -21,12 +21,11 @@ numbers come from numpy. Tests hold the two equal on every kind of pattern.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import lru_cache
 from typing import Any, Callable
 
 import numpy as np
 
-from .jit import available, make_jit, with_kernels
+from .jit import available, built_once, make_jit, with_kernels
 
 __all__ = ["BlockCounts", "block_counts", "first_positions", "range_positions"]
 
@@ -223,7 +222,7 @@ _count_keys: Callable[..., Any]
 _count_wide: Callable[..., Any]
 
 
-@lru_cache(maxsize=1)
+@built_once
 def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]]:
     """Build the numba kernels, one pair per pattern dtype."""
     jit = make_jit()
