@@ -14,6 +14,7 @@ float32 inputs (from library, bit arithmetic).
 from __future__ import annotations
 
 import math
+import struct
 import warnings
 import zlib
 from fractions import Fraction
@@ -353,3 +354,131 @@ def test_tf32_decode_is_float32_of_shifted_code():
         want = (codes << 13).view(np.float32).astype(np.float64)  # from library (numpy)
     got = bitprism.decode(codes, TF32)
     assert np.array_equal(got, want, equal_nan=True)
+
+
+# ----- NaN payloads on every path ---------------------------------------------------------------
+def _f64(bits: int) -> float:
+    """The Python float with these float64 bits (struct copies them, signaling NaNs included)."""
+    return struct.unpack("<d", struct.pack("<Q", bits))[0]
+
+
+# float64 NaN classes: quiet / signaling, payload empty, in the top bits, only in the low bits
+# (dropped by every narrower format), everywhere; both signs below
+NAN64 = {
+    "quiet": 0x7FF8000000000000,
+    "quiet, top payload": 0x7FFC000000000000,
+    "quiet, low payload": 0x7FF8000000000001,
+    "quiet, all ones": 0x7FFFFFFFFFFFFFFF,
+    "signaling, low payload": 0x7FF0000000000001,
+    "signaling, top payload": 0x7FF4000000000000,
+    "signaling, all ones": 0x7FF7FFFFFFFFFFFF,
+    "float16 payload's last bit": 0x7FF8040000000000,
+}
+NAN_DESTINATIONS = ["float32", "tf32", "bfloat16", "float16"] + [
+    n for n, f in bitprism.FORMATS.items() if f.bits <= 8
+]
+
+
+def _softfloat_nan(bits64: int, fmt: bitprism.Format) -> int:
+    """Berkeley SoftFloat's f64_to_f32 / f64_to_f16 NaN rule (softfloat_commonNaNToF16UI /
+    F32UI, specialize 8086): sign | all-ones exponent | quiet bit | the top t - 1 payload bits
+    of the float64 trailing significand."""
+    t = fmt.significand_bits
+    frac = bits64 & ((1 << 52) - 1)
+    sign = fmt.sign_mask if bits64 >> 63 else 0
+    return sign | fmt.nan_code | (frac >> (52 - t))
+
+
+def test_softfloat_rule_is_the_hardware_conversion() -> None:
+    # numpy's float64 -> float32 astype is the x86 conversion: payload kept, quieted
+    for bits in NAN64.values():
+        for sign in (0, 1 << 63):
+            x = np.array([bits | sign], np.uint64).view(np.float64)
+            with np.errstate(invalid="ignore"):
+                hw = int(x.astype(np.float32).view(np.uint32)[0])
+            assert hw == _softfloat_nan(bits | sign, bitprism.FORMATS["float32"])
+            # numpy's float64 -> float16 keeps the payload bits but not the quiet bit
+            with np.errstate(invalid="ignore"):
+                half = int(x.astype(np.float16).view(np.uint16)[0])
+            if bits >> 51 & 1 and half & 0x1FF:  # quiet, with payload bits numpy kept
+                assert half == _softfloat_nan(bits | sign, bitprism.FORMATS["float16"])
+
+
+@pytest.mark.parametrize("name", NAN_DESTINATIONS)
+@pytest.mark.parametrize("negative", [False, True], ids=["+", "-"])
+@pytest.mark.parametrize("pattern", list(NAN64), ids=list(NAN64))
+def test_nan_payload_same_on_scalar_and_array_paths(pattern: str, negative: bool, name: str) -> None:
+    from bitprism.numerics.compare import compare
+    from bitprism.numerics.exact import as_exact
+    from bitprism.numerics.scalar import decode_exact, encode_exact
+
+    fmt = bitprism.FORMATS[name]
+    bits = NAN64[pattern] | (1 << 63 if negative else 0)
+    array = np.array([bits], np.uint64).view(np.float64)
+    want = int(_encode(array, name)[0])  # the vector kernel
+    if fmt.specials == "ieee":
+        assert want == _softfloat_nan(bits, fmt)  # SoftFloat's rule (quiet, top payload bits)
+    assert bitprism.encode(_f64(bits), fmt) == want  # a Python float: the scalar path
+    assert encode_exact(as_exact(array[0]), fmt) == want  # a numpy scalar, exactly
+    assert encode_exact(decode_exact(bits, bitprism.FORMATS["float64"]), fmt) == want  # a code
+    row = compare(_f64(bits), [fmt]).rows[0]
+    assert row.code == want and row.stored.is_nan == fmt.has_nan
+    if fmt.specials == "ieee":
+        assert row.fields.payload == want & ((1 << (fmt.significand_bits - 1)) - 1)
+
+
+def test_float16_signaling_nan_to_float32_is_quieted_with_its_payload() -> None:
+    from bitprism.numerics.exact import as_exact
+    from bitprism.numerics.scalar import encode_exact
+
+    h = np.array([0x7D01], np.uint16).view(np.float16)  # signaling: quiet bit clear, payload 0x101
+    with np.errstate(invalid="ignore"):
+        numpy_bits = int(h.astype(np.float32).view(np.uint32)[0])  # numpy keeps the payload ...
+    want = numpy_bits | 0x00400000  # ... and IEEE 754-2019 §6.2.3 (SoftFloat f16_to_f32) quiets
+    assert want == 0x7FE02000
+    f32 = bitprism.FORMATS["float32"]
+    assert int(_encode(h, "float32")[0]) == want  # array path
+    assert int(bitprism.encode(h[0], f32)) == want  # numpy scalar
+    assert encode_exact(as_exact(h[0]), f32) == want  # its exact value
+
+
+def test_nan_in_its_own_format_keeps_its_bits() -> None:
+    """A value put into its own format is copied (IEEE 754-2019 §5.5.1), not converted: a
+    signaling NaN stays signaling, as on the array path (numpy copies the bits)."""
+    from bitprism.numerics.compare import compare
+
+    s32 = np.array([0x7F800001, 0xFFC00123], np.uint32).view(np.float32)
+    assert np.array_equal(_encode(s32, "float32"), [0x7F800001, 0xFFC00123])  # numpy view
+    for value, code in zip(s32, (0x7F800001, 0xFFC00123)):
+        assert int(bitprism.encode(value, "float32")) == code
+        row, half = compare(value, ["float32", "float16"]).rows
+        assert row.code == code
+        assert half.code == _encode(np.array([value]), "float16")[0]  # converted: quieted
+    assert compare(s32[0], ["float32"]).rows[0].kind.label == "signaling NaN"
+    snan = _f64(0x7FF0000000000001)
+    assert bitprism.encode(snan, "float64") == 0x7FF0000000000001  # Python float into float64
+    assert compare(snan, ["float64"]).rows[0].code == 0x7FF0000000000001
+
+
+def test_nan_payload_in_exact_values() -> None:
+    from fractions import Fraction as Q
+
+    from bitprism.numerics.decimal_text import exact_text
+    from bitprism.numerics.exact import ExactValue, as_exact
+    from bitprism.numerics.scalar import decode_exact
+
+    x = as_exact(_f64(0xFFFC000000000000))
+    assert x.is_nan and x.negative and x.payload == Q(3, 4)  # trailing significand 0xC000... / 2^52
+    assert decode_exact(0x7F00, bitprism.FORMATS["float16"]).payload == Q(0x300, 1 << 10)
+    assert decode_exact(0x7F, bitprism.FORMATS["float8_e4m3fn"]).payload is None  # single NaN
+    assert bitprism.parse("nan").payload is None
+    # equality is structural: the payload takes part (it changes the code a cast gives)
+    assert x != ExactValue.nan(True) and x == ExactValue.nan(True, Q(3, 4))
+    assert len({x, ExactValue.nan(True, Q(3, 4)), ExactValue.nan(True)}) == 2
+    assert (-x).payload == x.payload and not (-x).negative
+    # exact text keeps the sign only: it reads back as a NaN (the widget keeps x itself)
+    assert exact_text(x) == "-nan" and bitprism.parse(exact_text(x)) == ExactValue.nan(True)
+    with pytest.raises(bitprism.BitprismError, match="payload"):
+        ExactValue("finite", False, Q(1), payload=Q(1, 2))
+    with pytest.raises(bitprism.BitprismError, match="payload"):
+        ExactValue.nan(False, Q(1, 3))  # not a dyadic fraction

@@ -7,6 +7,7 @@ ml_dtypes / numpy and the errors with fractions.
 
 from __future__ import annotations
 
+import math
 import random
 import subprocess
 import sys
@@ -27,7 +28,7 @@ from bitprism.numerics.decimal_text import (
     exact_text,
     shortest_decimal,
 )
-from bitprism.numerics.exact import ExactValue
+from bitprism.numerics.exact import MAGNITUDE_LIMIT, ExactValue
 from bitprism.numerics.inspect import CodeClass, fields
 from bitprism.numerics.parse import parse
 
@@ -342,3 +343,109 @@ def test_compare_accepts_numbers_and_names() -> None:
     c = compare(np.float32(0.1), formats=["fp16"])
     assert c.input.value == Fraction(np.float32(0.1).item()) and c.rows[0].format.name == "float16"
     assert isinstance(c, Comparison) and get_format("bf16") not in [r.format for r in c.rows]
+
+
+# ----- values and errors beyond float64 and beyond Python's int-to-str limit --------------------
+def _decimal_g(q: Fraction, digits: int, signed: bool) -> str:
+    """Python's decimal module: q to 60 digits, then format(..., 'g') (round half even), with
+    trailing zeros dropped as float's 'g' drops them (Decimal's keeps significant zeros)."""
+    with localcontext() as ctx:
+        ctx.prec = 60
+        d = Decimal(q.numerator) / Decimal(q.denominator)
+        text = format(d, f"{'+' if signed else ''}.{digits}g")
+    mantissa, _, exponent = text.partition("e")
+    if "." in mantissa:
+        mantissa = mantissa.rstrip("0").rstrip(".")
+    return mantissa + ("e" + exponent if exponent else "")
+
+
+def test_errors_beyond_float64_are_rendered_from_the_exact_value() -> None:
+    from bitprism.render.compare_text import format_error, format_number
+
+    c = compare("1e400", ["float4_e2m1fn"])  # overflows to FP4's largest, 6 (OCP MX v1.0)
+    row = c.rows[0]
+    assert row.stored.value == 6 and row.rel_error == Fraction(6, 10**400) - 1
+    text = c.to_text()
+    assert format_error(row.ulp_error) == _decimal_g(row.ulp_error, 6, True) == "-5e+399"
+    assert "-5e+399" in text
+    assert format_number(row.abs_error, 4, True) == _decimal_g(row.abs_error, 4, True)
+    assert "abs -1e+400" in c.to_html()
+    c = compare("1e-400", ["float8_e8m0fnu"])  # below E8M0's smallest, 2^-127: becomes it
+    row = c.rows[0]
+    assert row.stored.value == Fraction(1, 2**127)
+    assert format_number(row.rel_error, 4, True) == _decimal_g(row.rel_error, 4, True)
+    assert _decimal_g(row.rel_error, 4, True) == "+5.877e+361"
+    assert "+5.877e+361" in c.to_text() and "+5.877e+361" in c.to_html()
+    # an error too small for float64 is not shown as 0 (float() would flush it)
+    tiny = Fraction(-1, 10**400)
+    assert format_number(tiny, 4, True) == _decimal_g(tiny, 4, True) == "-1e-400"
+
+
+def test_format_number_in_float64_range_is_python_formatting() -> None:
+    from bitprism.render.compare_text import format_error, format_number
+
+    rng = random.Random(7)
+    for _ in range(2000):
+        q = Fraction(rng.getrandbits(60) + 1, rng.getrandbits(60) + 1) * Fraction(2) ** rng.randint(-1000, 1000)
+        q = -q if rng.random() < 0.5 else q
+        assert format_number(q, 4, True) == f"{float(q):+.4g}"  # Python's float formatting
+        assert format_number(q) == f"{float(q):.4g}"
+    assert format_error(Fraction(-1, 3)) == "-1/3" and format_error(Fraction(5, 2)) == "+2.5"
+    assert format_error(Fraction(10**400 + 1, 3)).startswith("+3.333e+399")
+
+
+@pytest.mark.parametrize("text", ["1e5000", "-1e5000", "1/3**10000", "2**100000", "1e4321 + 1"])
+def test_values_beyond_the_int_to_str_limit_render(text: str) -> None:
+    assert sys.get_int_max_str_digits() == 4300  # Python's default limit (sys docs)
+    c = compare(text, ["float32", "float16", "float4_e2m1fn", "float8_e8m0fnu"])
+    out, page = c.to_text(), c.to_html()
+    assert len(out) < 2000 and len(page) < 64 * 1024
+    head = out.splitlines()[0]
+    if text == "1e4321 + 1":
+        assert "(4322 digits)" in head and "(4322 digits)" in page
+    if text == "2**100000":  # 30103 digits: floor(100000 log10 2) + 1 (math.log10)
+        assert f"({math.floor(100000 * math.log10(2)) + 1} digits)" in head
+
+
+def test_values_render_with_a_lowered_int_to_str_limit() -> None:
+    previous = sys.get_int_max_str_digits()
+    try:
+        sys.set_int_max_str_digits(640)  # the smallest limit Python allows (sys docs)
+        for text in ("2**-1074", "1e700", "1/3**700"):
+            c = compare(text, ["float64", "float16"])
+            assert c.to_text() and c.to_html()
+    finally:
+        sys.set_int_max_str_digits(previous)
+
+
+def _lines_run(call) -> int:
+    """Python lines executed by ``call()`` (sys.settrace): a count of work, not a clock."""
+    count = 0
+
+    def trace(frame, event, arg):  # noqa: ANN001
+        nonlocal count
+        if event == "line":
+            count += 1
+        return trace
+
+    sys.settrace(trace)
+    try:
+        call()
+    finally:
+        sys.settrace(None)
+    return count
+
+
+def test_sticky_bit_sum_renders_with_little_work() -> None:
+    """1 + 1e-999999 carries the sticky stand-in 2^-131073 (exact_arithmetic): its exact decimal
+    has 131,074 digits. Peeling one factor of 2 per step of a loop (the old code) ran about
+    half a million lines and took seconds; the display writes a few dozen digits."""
+    c = compare("1+1e-999999")
+    assert c.input.value == 1 + Fraction(1, 2 ** (MAGNITUDE_LIMIT + 1))
+    text, html = c.to_text(), c.to_html()  # warm the caches
+    lines = _lines_run(c.to_text) + _lines_run(c.to_html)
+    assert lines < 50_000, lines
+    assert "(131074 digits)" in text and "(131074 digits)" in html  # 131073 + 1 (exact)
+    assert len(text) < 2000 and len(html) < 64 * 1024
+    digits = sum(ch.isdigit() for ch in text)
+    assert digits < 1500, digits

@@ -9,17 +9,19 @@ one), Python float arithmetic (IEEE 754 binary64), ``fractions.Fraction`` for ex
 from __future__ import annotations
 
 import math
+import time
 from fractions import Fraction
 
 import ml_dtypes
 import numpy as np
 import pytest
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from bitprism.errors import BitprismError, ParseError
 from bitprism.formats import get_format
 from bitprism.numerics.evaluate import STEP_EVENTS, Evaluation, Step, evaluate
+from bitprism.numerics.parse import parse
 
 
 def bits(x: object, dtype: object) -> int:
@@ -237,3 +239,85 @@ def test_float64_operation_matches_python_float(a: float, b: float, op: str) -> 
     else:
         assert float(ev.result) == expected
         assert ev.result.negative == (math.copysign(1.0, expected) < 0)
+
+
+# ----- hostile input: a result or a BitprismError, never another exception, in bounded time -----
+_HOSTILE_FORMATS = ["float16", "float8_e4m3fn", "float64", "float8_e8m0fnu", "float4_e2m1fn"]
+
+
+def _hostile(text: str, fmt: str) -> None:
+    """Every reader of typed text on ``text``; only BitprismError may escape."""
+    import bitprism  # noqa: F401  (installs the text and HTML views)
+    from bitprism.numerics.compare import compare
+
+    for step in (
+        lambda: parse(text),
+        lambda: str(parse(text)),
+        lambda: evaluate(text, fmt).to_text(),
+        lambda: evaluate(text, fmt).to_html(),
+        lambda: compare(text).to_text(),
+        lambda: compare(text, [fmt, "float32"]).to_html(),
+        lambda: compare(text, [fmt], rounding="roundTowardNegative", via="bfloat16").to_text(),
+    ):
+        try:
+            step()
+        except BitprismError:
+            pass
+
+
+_NUMBER = st.one_of(
+    st.integers(0, 10**30).map(str),
+    st.builds(lambda m, e: f"{m}e{e}", st.integers(0, 999), st.integers(-10**7, 10**7)),
+    st.builds(lambda m, e: f"0x1.{m:x}p{e}", st.integers(0, 4095), st.integers(-10**6, 10**6)),
+    st.builds(lambda a, b: f"{a}.{b}", st.integers(0, 10**6), st.integers(0, 10**6)),
+    st.sampled_from(["inf", "nan", "Infinity", "-0", "0", "1", "2", "0.1", "1e-999999",
+                     "1e999999", "0b101", "0o17", "nan0", "e5", "1__0", "0x", "1e"]),
+)
+_OPERATOR = st.sampled_from(["+", "-", "*", "/", "**", "\u2212", "\u00d7", "\u00f7", "^", ","])
+
+
+def _grammar_text() -> st.SearchStrategy[str]:
+    def grow(children: st.SearchStrategy[str]) -> st.SearchStrategy[str]:
+        return st.one_of(
+            st.builds(lambda a, op, b: f"{a}{op}{b}", children, _OPERATOR, children),
+            st.builds(lambda a: f"({a})", children),
+            st.builds(lambda s, a: f"{s}{a}", st.sampled_from(["-", "+", "\u2212", "--"]), children),
+            st.builds(lambda a, k: "(" * k + a + ")" * k, children, st.integers(0, 80)),
+            st.builds(lambda a, b: f"({a})**({b})", children, children),
+        )
+
+    return st.recursive(_NUMBER, grow, max_leaves=16)
+
+
+@settings(max_examples=150, deadline=2000)  # a per-example bound of 2 s (hypothesis deadline)
+@given(text=_grammar_text(), fmt=st.sampled_from(_HOSTILE_FORMATS))
+def test_hostile_expressions_give_a_value_or_a_bitprism_error(text: str, fmt: str) -> None:
+    _hostile(text, fmt)
+
+
+@settings(max_examples=150, deadline=2000)
+@given(text=st.text(max_size=120), fmt=st.sampled_from(_HOSTILE_FORMATS))
+def test_hostile_text_gives_a_value_or_a_bitprism_error(text: str, fmt: str) -> None:
+    _hostile(text, fmt)
+
+
+@pytest.mark.parametrize(
+    "text",
+    [
+        "1+1e-999999",  # the sticky stand-in 2^-131073: a 131,074-digit exact decimal
+        "(1+1e-999999)**2",
+        "1e5000",
+        "1/3**10000",
+        "-1e-400 * 3",
+        "(1+2**-70)**(2**62)",
+        "9**9**9",
+        "1e999999999 - 1e999999999",
+        "(" * 64 + "1" + ")" * 64,
+        "2**(2**20000)",
+        "0x1p131071 * 2 - 0x1p131072",
+    ],
+)
+def test_known_hostile_inputs(text: str) -> None:
+    start = time.perf_counter()
+    _hostile(text, "float16")
+    print(f"{text[:30]}: {(time.perf_counter() - start) * 1e3:.1f} ms")  # informative only

@@ -547,3 +547,125 @@ def test_bit_pattern_errors(text: str, fmt: str, column: int, fragment: str) -> 
 def test_bit_pattern_unknown_format() -> None:
     with pytest.raises(BitprismError, match="unknown format"):
         parse_bits("0x3c00", "float17")
+
+
+# ----- powers of bases near 1: the estimate never decides what it cannot tell -------------------
+def test_power_of_a_base_near_one_is_refused_not_clamped() -> None:
+    # (1 ± 2^-70)^(2^62) = exp(±2^62 * log1p(±2^-70)) ~ 1.0039 and 0.9961 (math.log1p, math.exp):
+    # far inside every format, but its exact rational needs ~2^68 bits, so it is refused
+    assert 1.0038 < math.exp(2**62 * math.log1p(2**-70)) < 1.0040
+    assert 0.9960 < math.exp(2**62 * math.log1p(-(2**-70))) < 0.9962
+    for text in ("(1+2**-70)**(2**62)", "(1-2**-70)**(2**62)", "(1+2**-70)**(-2**62)"):
+        with pytest.raises(ParseError, match="cannot be evaluated exactly") as info:
+            parse(text)
+        assert info.value.column == text.index(")**") + 2  # at the operator
+
+
+@pytest.mark.parametrize(
+    ("text", "direction"),
+    [
+        ("(1+2**-70)**(2**90)", 1),  # log2 = 2^90 * log2(1 + 2^-70) ~ 1.5e6 (math.log1p)
+        ("(1-2**-70)**(2**90)", -1),
+        ("(1+2**-70)**(-2**90)", -1),
+        ("(1-2**-70)**(-2**90)", 1),
+        ("(1+2**-1100)**(2**1200)", 1),  # log2 of the base underflows float64: sign from q - 1
+        ("(1-2**-1100)**(2**1200)", -1),
+    ],
+)
+def test_power_of_a_base_near_one_clamps_in_the_right_direction(text: str, direction: int) -> None:
+    v = parse(text)
+    assert v.clamped == direction and not v.negative
+
+
+def test_log2_estimate_is_accurate_near_one() -> None:
+    from decimal import localcontext
+
+    from bitprism.numerics.expression import log2_fraction
+
+    with localcontext() as ctx:
+        ctx.prec = 80
+        for q in (Fraction(2**70 + 1, 2**70), Fraction(2**70 - 1, 2**70), Fraction(3, 2),
+                  Fraction(1, 3), Fraction(10**30 + 7, 10**30), Fraction(2**200, 3)):
+            ref = (Decimal(q.numerator) / Decimal(q.denominator)).ln() / Decimal(2).ln()
+            got = log2_fraction(q)  # decimal.Decimal.ln at 80 digits is the reference
+            assert abs(Decimal(got) - ref) <= abs(ref) * Decimal("1e-14"), (q, got, ref)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    k=st.integers(1, 60),
+    delta=st.integers(-1000, 1000).filter(lambda d: d != 0),
+    n=st.integers(-4000, 4000),
+)
+def test_power_near_one_never_contradicts_the_exact_value(k: int, delta: int, n: int) -> None:
+    p, q = 2**k + delta, 2**k
+    if p <= 0:
+        return
+    _check_power(p, q, n)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    base=st.sampled_from([(3, 2), (2, 3), (7, 4), (5, 8), (1023, 512), (9, 1), (1, 10)]),
+    offset=st.integers(-40, 40),
+    sign=st.sampled_from([1, -1]),
+)
+def test_power_at_the_limit_never_contradicts_the_exact_value(
+    base: tuple[int, int], offset: int, sign: int
+) -> None:
+    p, q = base
+    n = round((MAGNITUDE_LIMIT + 1) / abs(math.log2(p / q))) + offset  # result near 2^±131073
+    _check_power(p, q, sign * n)
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    k=st.integers(20, 120),
+    delta=st.integers(-(2**20), 2**20).filter(lambda d: d != 0),
+    log2_n=st.integers(0, 200),
+    negative_n=st.booleans(),
+)
+def test_power_near_one_with_huge_exponent_matches_a_decimal_reference(
+    k: int, delta: int, log2_n: int, negative_n: bool
+) -> None:
+    """Exponents far too large for the exact power: the reference is log2|x^n| = n ln(p/q) /
+    ln 2 in decimal.Decimal at 100 digits. A clamp must point where the reference does and
+    lie beyond the limit; a value must be exact (only small results can be built)."""
+    from decimal import localcontext
+
+    p, q = 2**k + delta, 2**k
+    n = (1 << log2_n) + 3
+    n = -n if negative_n else n
+    try:
+        v = parse(f"({p}/{q})**({n})")
+    except ParseError as exc:
+        assert "cannot be evaluated exactly" in exc.reason
+        return
+    with localcontext() as ctx:
+        ctx.prec = 100
+        log2_result = Decimal(n) * (Decimal(p) / Decimal(q)).ln() / Decimal(2).ln()
+    if v.clamped:
+        assert log2_result * v.clamped > MAGNITUDE_LIMIT, (p, q, n, log2_result)
+    else:
+        assert v.value == Fraction(p, q) ** n
+
+
+def _check_power(p: int, q: int, n: int) -> None:
+    """parse of (p/q)**n against Fraction's exact power: clamped exactly when the exact value
+    lies beyond 2^±MAGNITUDE_LIMIT, equal to it otherwise; or refused as too large to build."""
+    from bitprism.numerics.exact import floor_log2
+
+    text = f"({p}/{q})**({n})"
+    exact_value = Fraction(p, q) ** n  # fractions.Fraction: exact
+    try:
+        v = parse(text)
+    except ParseError as exc:
+        assert "cannot be evaluated exactly" in exc.reason
+        return
+    e = floor_log2(exact_value)
+    if e >= MAGNITUDE_LIMIT:
+        assert v.clamped == 1, text
+    elif e < -MAGNITUDE_LIMIT:
+        assert v.clamped == -1, text
+    else:
+        assert not v.clamped and v.value == exact_value, text

@@ -1,12 +1,15 @@
 """encode / decode / cast: real values <-> bit patterns of any format, scalar or vectorized.
 
-Scalars (Python int, float, Fraction, Decimal, numpy scalars, ``parse`` results) take the exact
-integer path and return a Python int; arrays take the chunked numpy kernel and return an array
-of the format's code dtype with the input's shape. Both paths round once, from the exact input.
+Scalars (Python int, float, Fraction, Decimal, ``parse`` results, and text, which ``parse``
+reads exactly) take the exact integer path and return a Python int; arrays (numpy scalars
+included) take the chunked numpy kernel and return an array of the format's code dtype with the
+input's shape. Both paths round once, from the exact input, and keep a NaN's sign and payload
+the same way; a value already in the target format keeps its bits (a copy, not a conversion).
 """
 
 from __future__ import annotations
 
+import struct
 from functools import lru_cache
 from typing import Any, Callable
 
@@ -26,6 +29,7 @@ __all__ = [
     "encode",
     "encode_with",
     "is_scalar_input",
+    "native_code",
     "to_float_array",
     "value_table",
 ]
@@ -37,8 +41,25 @@ _MAX_EXACT_INT = 1 << 53
 
 
 def is_scalar_input(x: Any) -> bool:
-    """True for the values that take the exact scalar path."""
+    """True for the values that take the exact scalar path (text included: ``parse`` reads it)."""
+    if isinstance(x, str):
+        return True
     return not isinstance(x, (np.ndarray, list, tuple)) and not hasattr(x, "__array_interface__")
+
+
+def native_code(x: Any, fmt: Format) -> int | None:
+    """The bits of ``x`` when it already is a value of ``fmt`` as stored (a numpy or ml_dtypes
+    scalar of that dtype, or a Python float for float64), else None. Putting a value into its
+    own format is a copy, which keeps a signaling NaN as it is (IEEE 754-2019 §5.5.1), as the
+    array path does; a conversion quiets it (§6.2.3)."""
+    if isinstance(x, float) and not isinstance(x, np.generic):
+        if fmt.is_dtype(np.dtype(np.float64)):
+            return int(struct.unpack("<Q", struct.pack("<d", x))[0])
+        return None
+    if isinstance(x, np.generic) and fmt.is_dtype(x.dtype):
+        raw = np.asarray(x).reshape(1).view(np.dtype(f"u{x.dtype.itemsize}"))
+        return int(raw[0]) & ((1 << fmt.bits) - 1)
+    return None
 
 
 def _float_dtype_of(arr: np.ndarray) -> np.dtype:
@@ -50,6 +71,11 @@ def _float_dtype_of(arr: np.ndarray) -> np.dtype:
         return np.dtype(np.float32)  # float16 and every ml_dtypes float fit float32 exactly
     if dt.kind in "iub":
         return np.dtype(np.float64)
+    if dt.kind in "US":
+        raise UnsupportedInputError(
+            f"arrays of text ({dt}) are not read: a str is one value, read exactly by parse(); "
+            "pass one string at a time, or numbers as a float/int numpy array"
+        )
     if dt.kind == "f":
         raise UnsupportedInputError(
             f"{dt} arrays are not supported (platform-dependent extended precision); "
@@ -126,6 +152,9 @@ def encode_with(
     the generator stochastic rounding draws from (default: one seeded with ``options.seed``),
     for callers that cast a tensor piece by piece with a seed per piece."""
     if is_scalar_input(x):
+        native = native_code(x, fmt)
+        if native is not None and options.overflow == "standard" and options.subnormals == "keep":
+            return native  # already in this format: the code is the bits (a NaN's included)
         if rng is None and options.rounding == "stochastic":
             rng = np.random.default_rng(options.seed)
         return encode_exact(as_exact(x), fmt, options, rng)

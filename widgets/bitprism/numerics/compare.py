@@ -12,13 +12,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 from fractions import Fraction
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
 import numpy as np
 
 from ..display import Displayable
 from ..errors import BitprismError
 from ..formats import Format, FormatLike, get_format
+from .codes import native_code
 from .decimal_text import exact_decimal, exact_text, shortest_decimal
 from .exact import ExactValue, as_exact
 from .inspect import CodeClass, Fields, code_fields, exact_ulp, neighbour_codes
@@ -260,6 +261,9 @@ def compare(
     x, text = read_input(value)
     fmts = [get_format(f) for f in (formats if not isinstance(formats, (str, Format)) else [formats])]
     pin = (get_format(pinned[0]), int(pinned[1])) if pinned else None
+    own: dict[Format, int] = {}
+    if x.is_nan and via is None:  # a NaN in its own format is copied, not converted
+        own = {f: c for f in fmts if (c := native_code(value, f)) is not None}
     return compare_exact(
         x,
         text,
@@ -267,6 +271,7 @@ def compare(
         resolve_options(options, rounding, overflow, subnormals, seed),
         None if via is None else get_format(via),
         pin,
+        own,
     )
 
 
@@ -277,9 +282,12 @@ def compare_exact(
     options: CastOptions,
     via: Format | None = None,
     pinned: tuple[Format, int] | None = None,
+    own_codes: Mapping[Format, int] | None = None,
 ) -> Comparison:
     """``compare`` of an already exact input with resolved formats and options (what the
-    Prism calls: it parses the typed text once and keeps the value)."""
+    Prism calls: it parses the typed text once and keeps the value). ``own_codes`` gives rows
+    whose code is the input's own bit pattern (``codes.native_code``: a NaN scalar shown in
+    its own format keeps its bits, a signaling NaN included); ``pinned`` takes precedence."""
     if not formats:
         raise BitprismError("compare() needs at least one format, got none")
     via_code = None
@@ -289,7 +297,9 @@ def compare_exact(
         via_code = encode_exact(x, via, options, rng)
         source = decode_exact(via_code, via)
     pin_fmt, pin_code = pinned if pinned is not None else (None, None)
+    own = dict(own_codes or {})
     rows = tuple(
-        compare_row(x, f, options, source, pin_code if f == pin_fmt else None) for f in formats
+        compare_row(x, f, options, source, pin_code if f == pin_fmt else own.get(f))
+        for f in formats
     )
     return Comparison(x, text, options, via, via_code, source, rows)

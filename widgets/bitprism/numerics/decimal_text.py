@@ -13,6 +13,7 @@ from fractions import Fraction
 
 from ..errors import BitprismError
 from ..formats import Format, FormatLike, get_format
+from .digits import fraction_text, full_digit_cap, valuation
 from .exact import ExactValue
 from .options import CastOptions
 from .scalar import decode_exact, encode_exact
@@ -20,9 +21,11 @@ from .scalar import decode_exact, encode_exact
 __all__ = [
     "DEFAULT_MAX_DIGITS",
     "abbreviate_decimal",
+    "decimal_digit_count",
     "exact_decimal",
     "exact_text",
     "readable_decimal",
+    "scientific",
     "shortest_decimal",
 ]
 
@@ -187,11 +190,54 @@ def _shortest_with(
 
 
 def _terminating(value: Fraction) -> bool:
-    d = value.denominator
-    for p in (2, 5):
-        while d % p == 0:
-            d //= p
-    return d == 1
+    return _decimal_shift(value.denominator) is not None
+
+
+def _decimal_shift(d: int) -> int | None:
+    """k = max(a, b) for d = 2^a 5^b (mag * 10^k is then the smallest integer multiple), or
+    None when d has another prime factor. In O(log k) divisions (``digits.valuation``): one
+    factor at a time was quadratic, seconds for the 131,073 factors of 2 behind a sticky
+    bit."""
+    a, d = valuation(d, 2)
+    if d == 1:
+        return a
+    b, d = valuation(d, 5)
+    return max(a, b) if d == 1 else None
+
+
+def _leading(mag: Fraction, count: int, e10: int) -> str:
+    """The first ``count`` significant digits of ``mag`` (truncated; 10^e10 <= mag), by one
+    integer division: floor(mag * 10^(count - 1 - e10))."""
+    shift = count - 1 - e10
+    n, d = mag.numerator, mag.denominator
+    return str(n * 10**shift // d if shift >= 0 else n // (d * 10 ** (-shift)))
+
+
+def _abbreviated(negative: bool, lead: str, e10: int, count: int) -> str:
+    """``abbreviate_decimal``'s layout: ``-1.2345…e-45 (105 digits)``."""
+    mant = lead[0] + "." + lead[1:] if len(lead) > 1 else lead
+    sign = "-" if negative else ""
+    return f"{sign}{mant}…e{'-' if e10 < 0 else '+'}{abs(e10):02d} ({count} digits)"
+
+
+def _significant(mag: Fraction, e10: int, k: int) -> tuple[int, int]:
+    """(significant digits, trailing zeros dropped) of the terminating expansion of ``mag``
+    (10^e10 <= mag, mag * 10^k the smallest integer multiple): mag * 10^k has e10 + k + 1
+    digits, and only an integer (k = 0) can end in zeros, which are not significant."""
+    zeros = 0
+    if k == 0:
+        zeros = min(valuation(mag.numerator, 2)[0], valuation(mag.numerator, 5)[0])
+    return e10 + k + 1 - zeros, zeros
+
+
+def decimal_digit_count(value: Fraction | int) -> int | None:
+    """Significant digits of the exact decimal expansion of ``value`` (0 for zero), counted
+    in integers without writing it out; None when it does not terminate."""
+    mag = abs(Fraction(value))
+    if mag == 0:
+        return 0
+    k = _decimal_shift(mag.denominator)
+    return None if k is None else _significant(mag, _floor_log10(mag), k)[0]
 
 
 def exact_decimal(value: Fraction | int, max_digits: int | None = None) -> str:
@@ -199,9 +245,13 @@ def exact_decimal(value: Fraction | int, max_digits: int | None = None) -> str:
 
     All significant digits are written: positionally for 1e-7 <= |x| < 1e21, otherwise as
     ``d.ddd…e±XX``. With ``max_digits`` set, a longer expansion is shown by its first
-    ``max_digits`` digits followed by ``… (N digits)`` (see ``abbreviate_decimal``). A value
-    with no finite expansion (a denominator with a prime factor other than 2 and 5) is written
-    with ``max_digits`` (default 40) correctly truncated digits and a trailing ``…``.
+    ``max_digits`` digits followed by ``… (N digits)`` (see ``abbreviate_decimal``). An
+    expansion of more than ``digits.FULL_DIGITS`` significant digits (a value of an exact
+    expression, such as a sum carrying a sticky bit; never a value of a format) is always
+    shown that way, with DEFAULT_MAX_DIGITS digits if ``max_digits`` is not set: it is never
+    built (that would be a conversion through Python's int-to-str limit, and seconds of work).
+    A value with no finite expansion (a denominator with a prime factor other than 2 and 5) is
+    written with ``max_digits`` (default 40) correctly truncated digits and a trailing ``…``.
     """
     value = Fraction(value)
     if value == 0:
@@ -209,22 +259,47 @@ def exact_decimal(value: Fraction | int, max_digits: int | None = None) -> str:
     negative = value < 0
     mag = abs(value)
     e10 = _floor_log10(mag)
-    if not _terminating(mag):
+    k = _decimal_shift(mag.denominator)
+    if k is None:
         n = max_digits or DEFAULT_MAX_DIGITS
-        scaled = mag * Fraction(10) ** (n - 1 - e10)
-        digits = str(scaled.numerator // scaled.denominator)
-        return _format_digits(negative, digits, e10, -7, 21) + "…"
-    # mag = N / (2^a 5^b): scale by 10^k with k = max(a, b) to reach an integer
-    k = 0
-    d = mag.denominator
-    while d != 1:
-        d //= 10 if d % 10 == 0 else (2 if d % 2 == 0 else 5)
-        k += 1
-    digits = str((mag * 10**k).numerator)
+        return _format_digits(negative, _leading(mag, n, e10), e10, -7, 21) + "…"
+    count, zeros = _significant(mag, e10, k)
+    if count > full_digit_cap():
+        shown = max_digits or DEFAULT_MAX_DIGITS
+        return _abbreviated(negative, _leading(mag, shown, e10), e10, count)
+    digits = str((mag * 10**k).numerator // 10**zeros)
     full = _format_digits(negative, digits, e10, -7, 21)
     if max_digits is not None:
         return abbreviate_decimal(full, max_digits)
     return full
+
+
+def scientific(value: Fraction, digits: int, signed: bool = False) -> str:
+    """``value`` with ``digits`` significant digits in exponent notation as Python's ``%g``
+    writes it (trailing zeros dropped: ``9.99e+399``, ``-1e-400``), correctly rounded (ties to
+    even) from the exact value, for any magnitude: the figure ``%g`` of ``float(value)`` would
+    give where float64 cannot hold the value (an error of 1e400 overflows a float, one of
+    1e-400 becomes 0)."""
+    if digits < 1:
+        raise BitprismError(f"digits must be at least 1, got {digits!r}")
+    value = Fraction(value)
+    sign = "-" if value < 0 else ("+" if signed else "")
+    if value == 0:
+        return f"{sign}0"
+    mag = abs(value)
+    e10 = _floor_log10(mag)
+    shift = digits - 1 - e10
+    n, d = mag.numerator, mag.denominator
+    num, den = (n * 10**shift, d) if shift >= 0 else (n, d * 10 ** (-shift))
+    m, rem = divmod(num, den)
+    if 2 * rem > den or (2 * rem == den and m % 2 == 1):
+        m += 1
+    if m == 10**digits:  # 9.99.. rounded up to 10.0: one more power of ten
+        m //= 10
+        e10 += 1
+    text = str(m).rstrip("0")
+    mant = text[0] + ("." + text[1:] if len(text) > 1 else "")
+    return f"{sign}{mant}e{'-' if e10 < 0 else '+'}{abs(e10):02d}"
 
 
 def _count_digits(text: str) -> tuple[int, str]:
@@ -252,9 +327,7 @@ def abbreviate_decimal(text: str, max_digits: int = DEFAULT_MAX_DIGITS) -> str:
         else:
             frac = text.split(".")[1]
             exp10 = -(len(frac) - len(frac.lstrip("0")) + 1)
-    cut = body[:max_digits]
-    mant = cut[0] + "." + cut[1:] if len(cut) > 1 else cut
-    return f"{'-' if negative else ''}{mant}…e{'-' if exp10 < 0 else '+'}{abs(exp10):02d} ({count} digits)"
+    return _abbreviated(negative, body[:max_digits], exp10, count)
 
 
 def readable_decimal(shortest: str, exact: str, max_digits: int = 17) -> str:
@@ -268,16 +341,22 @@ def readable_decimal(shortest: str, exact: str, max_digits: int = 17) -> str:
 
 
 def exact_text(x: ExactValue) -> str:
-    """Text that ``parse`` reads back to exactly ``x`` (how a number is stored in a widget)."""
+    """Text that ``parse`` reads back to exactly ``x`` (how a number is stored in a widget).
+
+    Two exceptions, where the caller keeps the ExactValue itself: a NaN is written ``nan``
+    with its sign only (its payload is a bit pattern, not a value ``parse`` could read), and a
+    rational whose numerator or denominator has more than ``digits.FULL_DIGITS`` digits is
+    shortened (``digits.fraction_text``) and does not read back."""
     special = _special_text(x)
     if special is not None:
         return special
+    sign = "-" if x.negative else ""
     if x.clamped:
         power = (x.clamped * (x.floor_log2() + 1)) if x.clamped > 0 else x.floor_log2() - 1
-        return f"{'-' if x.negative else ''}2**{power}"
+        return f"{sign}2**{power}"
     mag = x.magnitude
     if _terminating(mag):
         text = exact_decimal(mag)
-        if _count_digits(text)[0] <= 60:
-            return ("-" if x.negative else "") + text
-    return f"{'-' if x.negative else ''}{mag.numerator}/{mag.denominator}"
+        if "…" not in text and _count_digits(text)[0] <= 60:
+            return sign + text
+    return sign + fraction_text(mag)

@@ -27,7 +27,11 @@ on clamped values keeps an estimate of log2|x| and follows these rules:
 - ``*``, ``/`` and ``**`` move the estimate; while it stays beyond the limit the result stays
   clamped in that direction; when it would land back inside the range (``1e999999 / 1e999990``,
   huge - huge of equal size, huge * tiny) the exact value is unknown and a ``ParseError``
-  "cannot be evaluated exactly" names the operator's column.
+  "cannot be evaluated exactly" names the operator's column;
+- ``q ** n`` of an in-range base clamps only when the estimate n * log2(q) (``log2_fraction``,
+  accurate near q = 1 too) lies beyond the limit with room for its error; otherwise q^n is
+  built exactly or refused by the size budget (``(1 + 2**-70) ** 2**62`` is about 1.0039, whose
+  exact rational would need ~2^68 bits: refused, not clamped).
 """
 
 from __future__ import annotations
@@ -57,6 +61,10 @@ _SIZE_LIMIT = 2 * MAGNITUDE_LIMIT + 4096
 # Total bits of exact intermediates in one expression; bounds the time of adversarial inputs to
 # a few limit-sized operations.
 _WORK_LIMIT = 8 * _SIZE_LIMIT
+# Relative error allowed to a log2 estimate before it may decide "beyond the limit": the
+# estimates (``log2_fraction`` times an exponent) are good to about 1e-15.
+_ESTIMATE_ERROR = 1e-9
+_LN2 = math.log(2)
 
 
 # ----- exact values with a magnitude estimate -------------------------------------------------
@@ -87,8 +95,8 @@ class _Budget:
         largest = max(numerator_bits, denominator_bits)
         if largest > _SIZE_LIMIT:
             raise _OpError(
-                f"cannot be evaluated exactly: the exact result needs about {int(largest)} bits; "
-                f"the limit is {_SIZE_LIMIT}"
+                f"cannot be evaluated exactly: the exact result needs about {_bits_text(largest)} "
+                f"bits; the limit is {_SIZE_LIMIT}"
             )
         self.work += int(numerator_bits + denominator_bits)
         if self.work > _WORK_LIMIT:
@@ -96,6 +104,14 @@ class _Budget:
                 "cannot be evaluated exactly: the expression needs more than "
                 f"{_WORK_LIMIT} bits of exact intermediate results"
             )
+
+
+def _bits_text(bits: float) -> str:
+    """A bit count for a message: the number, or 2**k once it is too long to read (or to
+    convert: a count may have more digits than Python writes out)."""
+    if bits < 10**15:
+        return str(int(bits))
+    return f"2**{math.log2(bits):.1f}"
 
 
 @lru_cache(maxsize=1)
@@ -271,16 +287,38 @@ def _power(x: _Num, k: _Num, budget: _Budget) -> _Num:
         return _zero(negative) if n > 0 else _Num(ExactValue.inf(negative))  # 0 ** -n: x/0
     if a.magnitude == 1 and not a.clamped:
         return _Num(ExactValue.finite(1, negative))
-    step = _estimate(x)
-    if n.bit_length() > 62:  # |n| >= 2^62: any base other than ±1 is far beyond the limit
-        estimate = math.copysign(ESTIMATE_CAP, step) * (1 if n > 0 else -1)
-    else:
-        estimate = step * n
-    if a.clamped or abs(estimate) > MAGNITUDE_LIMIT + 1:
-        return _from_estimate(negative, estimate)
+    if a.clamped:  # |x| is known by its estimate only, and so is the result
+        return _from_estimate(negative, _times(x.log2, math.log2(abs(x.log2)), n, x.log2))
     q = a.magnitude
-    budget.charge(abs(n) * math.log2(q.numerator), abs(n) * math.log2(q.denominator))
+    step = log2_fraction(q)  # accurate near 1 too; 0.0 only if |q - 1| < 2^-1074
+    if step == 0.0:  # too close to 1 for a float: its size from q - 1 (ln q ~ q - 1)
+        size = log2_fraction(abs(q - 1)) - math.log2(_LN2)
+        estimate = _times(1.0 if q > 1 else -1.0, size, n)
+    else:
+        estimate = _times(step, math.log2(abs(step)), n, step)
+    # beyond the limit only when the estimate says so with room for its error (about 1e-15
+    # relative; 1e-9 allowed); anything else is computed exactly, or refused by the budget
+    if abs(estimate) > (MAGNITUDE_LIMIT + 1) * (1 + _ESTIMATE_ERROR):
+        return _clamped(negative, estimate)
+    if n.bit_length() < 1000:
+        budget.charge(abs(n) * math.log2(q.numerator), abs(n) * math.log2(q.denominator))
+    else:  # float(n) would overflow: count in integers (bit lengths bound log2 from above)
+        budget.charge(abs(n) * q.numerator.bit_length(), abs(n) * q.denominator.bit_length())
     return _finite(q**n, negative)
+
+
+def _times(sign: float, log2_abs_step: float, n: int, step: float | None = None) -> float:
+    """``step * n``, an estimate of log2|x^n| from step = log2|x| (given by its sign and
+    log2 of its size; ``step`` itself when a float holds it), kept within ±ESTIMATE_CAP and
+    computed without overflow for any size of ``n``: directly while both fit a float, else in
+    the log domain."""
+    sign = math.copysign(1.0, sign) * (1 if n > 0 else -1)
+    log2_size = log2_abs_step + math.log2(abs(n))
+    if log2_size >= 60:
+        return sign * ESTIMATE_CAP
+    if step is not None and n.bit_length() < 1000:
+        return step * n
+    return sign * 2.0**log2_size
 
 
 def _apply(op: str, x: _Num, y: _Num | None, rounding: str, budget: _Budget) -> _Num:

@@ -39,7 +39,7 @@ from functools import lru_cache
 from typing import Union
 
 from ..errors import ParseError, UnsupportedInputError
-from .exact import MAGNITUDE_LIMIT, ExactValue
+from .exact import MAGNITUDE_LIMIT, ExactValue, floor_log2
 
 __all__ = [
     "ESTIMATE_CAP",
@@ -66,6 +66,7 @@ MAX_LITERAL_DIGITS = 800  # digits in one literal: enough for float64's exact de
 # log2 estimates of clamped values are kept within ±2^60 so float arithmetic on them stays finite.
 ESTIMATE_CAP = float(1 << 60)
 _LOG2_10 = math.log2(10)
+_LN2 = math.log(2)
 
 _NAMES = {"inf": "inf", "infinity": "inf", "nan": "nan"}
 _OPERATORS = {"+": "+", "-": "-", "*": "*", "/": "/", "(": "(", ")": ")"}
@@ -124,8 +125,19 @@ def _stand_in(direction: int) -> Fraction:
 
 
 def log2_fraction(q: Fraction) -> float:
-    """log2(q) for q > 0 (math.log2 accepts ints of any size)."""
-    return math.log2(q.numerator) - math.log2(q.denominator)
+    """log2(q) for q > 0, with a small relative error everywhere, 1 included.
+
+    log2(n) - log2(d) would cancel for q near 1 (1 + 2^-70 gives 0.0, and with it the sign is
+    lost); instead: in [1/2, 2], log1p of the exactly computed (n - d) / d; elsewhere
+    e + log2(q / 2^e) with e = floor(log2 q) exact, which cannot cancel. The result is 0.0
+    only for q == 1 or where |log2 q| is below float64's range (|q - 1| < 2^-1074)."""
+    n, d = q.numerator, q.denominator
+    e = floor_log2(q)
+    if e in (-1, 0):
+        return math.log1p((n - d) / d) / _LN2  # int / int: correctly rounded at any size
+    # m = q / 2^e in [1, 2): its log2 is in [0, 1), added to an integer of magnitude >= 1
+    m_num, m_den = (n, d << e) if e >= 0 else (n << -e, d)
+    return e + math.log1p((m_num - m_den) / m_den) / _LN2
 
 
 def clamped_with_estimate(negative: bool, estimate: float) -> tuple[ExactValue, float]:

@@ -1,25 +1,30 @@
 """Reading codes apart (fields, class, NaN payload) and walking the value set (ULP, neighbours).
 
-The public functions are vectorized over numpy arrays and also accept scalars. Beside them sit
-their exact scalar twins, in Python integers and ``Fraction``s, which ``compare`` and the
-widgets use one code at a time (no array round trip): ``code_fields``, ``exact_ulp``,
-``neighbour_codes``. Tests hold each twin to its vectorized counterpart on every code of every
-format of up to 16 bits.
+The public functions are vectorized over numpy arrays (taken as float64; arrays of text are
+refused). A scalar argument (Python int, float, Fraction, Decimal, ExactValue, or text, which
+``parse`` reads exactly: ``"0.1"`` is 1/10, not the binary double) takes the exact path instead
+and gives a float. Beside them sit their exact scalar twins, in Python integers and
+``Fraction``s, which ``compare``, the widgets and that exact path use one code at a time (no
+array round trip): ``code_fields``, ``exact_ulp``, ``neighbour_codes``. Tests hold each twin to
+its vectorized counterpart on every code of every format of up to 16 bits.
 """
 
 from __future__ import annotations
 
 import enum
+import math
 from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any
 
 import numpy as np
 
+from ..errors import UnsupportedInputError
 from ..formats import Format, FormatLike, get_format
 from .codes import check_codes, decode, encode_with, is_scalar_input
-from .exact import ExactValue, floor_log2
+from .exact import ExactValue, as_exact, floor_log2
 from .options import DEFAULT_OPTIONS, CastOptions
+from .scalar import decode_exact, encode_exact
 
 __all__ = [
     "CodeClass",
@@ -168,9 +173,11 @@ def exact_ulp(value: ExactValue, fmt: Format) -> Fraction | None:
 
 
 def neighbour_codes(code: int, fmt: Format) -> tuple[int | None, int | None]:
-    """Codes of the values next below and next above ``code`` (IEEE nextDown / nextUp on the
-    value set: ±0 count as one value; Inf has nothing beyond it; NaN has no neighbours). The
-    scalar twin of ``next_down`` / ``next_up`` on codes."""
+    """Codes of the values next below and above ``code`` (IEEE 754-2019 §5.3.1 nextDown /
+    nextUp on the value set: ±0 count as one value, nextUp of the negative number of least
+    magnitude is -0 where the format has one, nextDown of the positive one is +0; Inf has
+    nothing beyond it; NaN has no neighbours). The scalar twin of ``next_down`` / ``next_up``
+    on codes."""
     kind = fmt.classify(code)
     if kind == "nan":
         return None, None
@@ -182,6 +189,8 @@ def neighbour_codes(code: int, fmt: Format) -> tuple[int | None, int | None]:
     up = _code_of_int_rank(r + 1, fmt) if r + 1 <= top else None
     if r == 0 and fmt.signed and fmt.has_zero:
         down = fmt.sign_mask | 1  # below either zero: the negative smallest subnormal
+    if r == -1 and fmt.has_negative_zero:
+        up = fmt.sign_mask  # nextUp(-least) = -0 (§5.3.1; numpy and ml_dtypes nextafter agree)
     return down, up
 
 
@@ -206,28 +215,35 @@ def _code_of_rank(r: np.ndarray, f: Format) -> np.ndarray:
     return mag
 
 
-def _values(x: Any) -> tuple[np.ndarray, bool]:
-    scalar = is_scalar_input(x)
-    arr = np.asarray(float(x) if scalar else x, dtype=np.float64)
-    return arr, scalar
-
-
-def _out(v: np.ndarray, scalar: bool) -> Any:
-    return float(v) if scalar else v
+def _values(x: Any) -> np.ndarray:
+    """An array argument as float64 (the vector path); text is refused, not converted."""
+    arr = np.asarray(x)
+    if arr.dtype.kind in "USO":
+        if arr.dtype.kind in "US" or any(isinstance(v, (str, bytes)) for v in arr.flat):
+            raise UnsupportedInputError(
+                f"arrays of text ({arr.dtype}) are not read: a str is one value, read exactly "
+                "by parse(); pass one string at a time, or numbers as a float/int numpy array"
+            )
+    return np.asarray(arr, dtype=np.float64)
 
 
 def ulp(x: Any, fmt: FormatLike) -> Any:
     """Unit in the last place at ``x`` in ``fmt`` (Goldberg / Handbook of Floating-Point
     Arithmetic): for |x| in [2^e, 2^(e+1)), 2^(max(e, emin) - t); e is capped at emax beyond the
-    largest binade; ulp(0) is the smallest subnormal; NaN for Inf and NaN."""
+    largest binade; ulp(0) is the smallest subnormal; NaN for Inf and NaN.
+
+    A scalar (text read by ``parse``, int, float, Fraction, Decimal, ExactValue) is taken
+    exactly (``exact_ulp``) and gives a float; arrays give float64 arrays."""
     f = get_format(fmt)
-    arr, scalar = _values(x)
+    if is_scalar_input(x):
+        u = exact_ulp(as_exact(x), f)
+        return math.nan if u is None else float(u)
+    arr = _values(x)
     _, ex = np.frexp(np.abs(arr))
     e = np.clip(ex.astype(np.int64) - 1, f.emin, f.emax)
     e = np.where(arr == 0, f.emin, e)
     out = np.ldexp(1.0, (e - f.significand_bits).astype(np.int32))
-    out = np.where(np.isfinite(arr), out, np.nan)
-    return _out(out, scalar)
+    return np.where(np.isfinite(arr), out, np.nan)
 
 
 # the representable value on the far side of x: saturated, so x beyond the range gives max
@@ -235,14 +251,15 @@ _FLOOR = CastOptions("roundTowardNegative", "saturate")
 _CEILING = CastOptions("roundTowardPositive", "saturate")
 
 
-def _step(x: Any, fmt: FormatLike, up: bool) -> Any:
-    f = get_format(fmt)
-    arr, scalar = _values(x)
+def _step(x: Any, f: Format, up: bool) -> np.ndarray:
+    arr = _values(x)
     # the representable value on the far side of x (<= x for next_up, >= x for next_down)
     codes = encode_with(arr, f, _FLOOR if up else _CEILING)
     v = decode(codes, f)
     r = rank(codes, f) + (1 if up else -1)
     stepped = decode(_code_of_rank(np.clip(r, _bottom_rank(f), _top_rank(f)), f), f)
+    if up and f.has_negative_zero:  # up from the negative number of least magnitude: -0
+        stepped = np.where(r == 0, -0.0, stepped)
     out_of_set = (r > _top_rank(f)) | (r < _bottom_rank(f))
     stepped = np.where(out_of_set, np.nan, stepped)
     beyond = v > arr if up else v < arr  # x lies outside the finite range on this side
@@ -253,37 +270,100 @@ def _step(x: Any, fmt: FormatLike, up: bool) -> Any:
         res = np.where(arr == (np.inf if up else -np.inf), np.nan, res)
     if not f.signed or not f.has_zero:
         # codes that decode to NaN here mean x is below the smallest value (or negative)
-        smallest = float(f.smallest_subnormal) if f.has_zero else float(f.smallest_normal)
-        lowest = 0.0 if f.has_zero else smallest
+        lowest = 0.0 if f.has_zero else float(f.smallest_normal)
         if up:
             res = np.where(np.isnan(v) & ~np.isnan(arr), lowest, res)
             res = np.where(~np.isnan(arr) & (arr < lowest), lowest, res)
         else:
             res = np.where(arr <= lowest, np.nan, res)
-    res = np.where(np.isnan(arr), np.nan, res)
-    return _out(res, scalar)
+    return np.where(np.isnan(arr), np.nan, res)
+
+
+def _less(x: ExactValue, q: Fraction) -> bool:
+    """x < q for a non-NaN x (±Inf included; -0 equals +0)."""
+    if x.is_inf:
+        return x.negative
+    return x.value < q
+
+
+def _greater(x: ExactValue, q: Fraction) -> bool:
+    """x > q for a non-NaN x (±Inf included; -0 equals +0)."""
+    if x.is_inf:
+        return not x.negative
+    return x.value > q
+
+
+def _step_exact(x: ExactValue, f: Format, up: bool) -> ExactValue | None:
+    """The scalar twin of ``_step``: the same rules on the exact value (None for NaN)."""
+    if x.is_nan:
+        return None
+    code = encode_exact(x, f, _FLOOR if up else _CEILING)
+    v = decode_exact(code, f)
+    down_code, up_code = neighbour_codes(code, f)
+    step_code = up_code if up else down_code
+    res = None if step_code is None else decode_exact(step_code, f)
+    if v.is_finite and (_less(x, v.value) if up else _greater(x, v.value)):
+        res = v  # x lies outside the finite range on this side: the far end is the answer
+    if x.is_inf and x.negative != up:  # nextUp(+Inf) = +Inf, nextDown(-Inf) = -Inf
+        res = x if f.has_inf else None
+    if not f.signed or not f.has_zero:
+        # no negative values, or no zero: below the smallest value there is only that value
+        lowest = Fraction(0) if f.has_zero else f.smallest_normal
+        if up:
+            if v.is_nan or _less(x, lowest):
+                res = decode_exact(0, f)
+        elif x.is_inf and x.negative or (not x.is_inf and x.value <= lowest):
+            res = None
+    return res
+
+
+def _step_value(x: Any, fmt: FormatLike, up: bool) -> Any:
+    f = get_format(fmt)
+    if is_scalar_input(x):
+        res = _step_exact(as_exact(x), f, up)
+        return math.nan if res is None else float(res)
+    return _step(x, f, up)
 
 
 def next_up(x: Any, fmt: FormatLike) -> Any:
-    """The smallest value of ``fmt`` greater than ``x`` (float64); NaN where none exists."""
-    return _step(x, fmt, up=True)
+    """The smallest value of ``fmt`` greater than ``x`` (float64); NaN where none exists.
+
+    IEEE 754-2019 §5.3.1 nextUp on the format's values: nextUp(-least) is -0 in formats with a
+    negative zero; nextUp(±0) is the least positive value. A scalar (text read by ``parse``,
+    int, float, Fraction, Decimal, ExactValue) is taken exactly; arrays go through float64."""
+    return _step_value(x, fmt, up=True)
 
 
 def next_down(x: Any, fmt: FormatLike) -> Any:
-    """The largest value of ``fmt`` less than ``x`` (float64); NaN where none exists."""
-    return _step(x, fmt, up=False)
+    """The largest value of ``fmt`` less than ``x`` (float64); NaN where none exists
+    (nextDown(x) = -nextUp(-x), so nextDown(+least) is +0). Scalars are taken exactly."""
+    return _step_value(x, fmt, up=False)
+
+
+def _codes_of(x: Any, f: Format) -> tuple[Any, bool]:
+    """``x`` rounded to ``f`` (roundTiesToEven): an int code for a scalar (exact), else codes."""
+    if is_scalar_input(x):
+        return encode_exact(as_exact(x), f, DEFAULT_OPTIONS), True
+    return encode_with(_values(x), f, DEFAULT_OPTIONS), False
 
 
 def ulp_distance(a: Any, b: Any, fmt: FormatLike) -> Any:
     """How many representable steps lead from ``a`` to ``b`` (signed, float64).
 
-    Both are first rounded to ``fmt`` (roundTiesToEven); +0 and -0 count as one value; NaN if
-    either is NaN. Exact up to 2^53 steps.
+    Both are first rounded to ``fmt`` (roundTiesToEven; a scalar exactly, text read by
+    ``parse``); +0 and -0 count as one value; NaN if either is NaN. Exact up to 2^53 steps.
     """
     f = get_format(fmt)
-    aa, sa = _values(a)
-    bb, sb = _values(b)
-    ca, cb = encode_with(aa, f, DEFAULT_OPTIONS), encode_with(bb, f, DEFAULT_OPTIONS)
+    ca, sa = _codes_of(a, f)
+    cb, sb = _codes_of(b, f)
+    if sa and sb:
+        if f.classify(ca) == "nan" or f.classify(cb) == "nan":
+            return math.nan
+        return float(_int_rank(cb, f) - _int_rank(ca, f))
     d = rank(cb, f).astype(np.float64) - rank(ca, f).astype(np.float64)
-    d = np.where(np.isnan(decode(ca, f)) | np.isnan(decode(cb, f)), np.nan, d)
-    return _out(d, sa and sb)
+    return np.where(np.isnan(decode(ca, f)) | np.isnan(decode(cb, f)), np.nan, d)
+
+
+def _int_rank(code: int, f: Format) -> int:
+    mag = code & f.magnitude_mask
+    return -mag if (f.signed and code & f.sign_mask) else mag

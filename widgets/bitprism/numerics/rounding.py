@@ -23,9 +23,7 @@ import numpy as np
 from ..formats import Format
 from .exact import ExactValue, floor_log2
 
-__all__ = ["effective_rounding", "exceeds_largest", "round_scaled"]
-
-_HALF = Fraction(1, 2)
+__all__ = ["effective_rounding", "exceeds_largest", "round_ratio", "round_scaled"]
 
 
 def effective_rounding(fmt: Format, mode: str) -> str:
@@ -37,33 +35,40 @@ def effective_rounding(fmt: Format, mode: str) -> str:
     return mode
 
 
-def _rounds_up(n: int, rem: Fraction, negative: bool, mode: str, rng: Any) -> bool:
-    """Whether the magnitude n + rem (0 <= rem < 1) rounds up to n + 1."""
+def _rounds_up(n: int, rem: int, den: int, negative: bool, mode: str, rng: Any) -> bool:
+    """Whether the magnitude n + rem/den (0 <= rem < den) rounds up to n + 1."""
     if rem == 0:
         return False
     if mode == "roundTiesToEven":
-        return rem > _HALF or (rem == _HALF and n & 1 == 1)
+        return 2 * rem > den or (2 * rem == den and n & 1 == 1)
     if mode == "roundTiesToAway":
-        return rem >= _HALF
+        return 2 * rem >= den
     if mode == "roundTowardZero":
         return False
     if mode == "roundTowardPositive":
         return not negative
     if mode == "roundTowardNegative":
         return negative
-    # stochastic: up with probability rem, decided by a uniform 64-bit draw (exact comparison)
+    # stochastic: up with probability rem/den, decided by a uniform 64-bit draw (exact
+    # comparison: draw / 2^64 < rem / den)
     if rng is None:
         rng = np.random.default_rng()
     draw = int(rng.integers(0, 1 << 63, dtype=np.int64)) * 2 + int(rng.integers(0, 2))
-    return Fraction(draw, 1 << 64) < rem
+    return draw * den < rem << 64
+
+
+def round_ratio(num: int, den: int, negative: bool, mode: str, rng: Any = None) -> int:
+    """``num / den`` (>= 0, the magnitude in units of the last place) rounded to an integer
+    by ``mode``, in integers (no Fraction, so no gcd per call)."""
+    n, rem = divmod(num, den)
+    return n + _rounds_up(n, rem, den, negative, mode, rng)
 
 
 def round_scaled(scaled: Fraction, negative: bool, mode: str, rng: Any = None) -> int:
     """``scaled`` (>= 0, the magnitude in units of the last place) rounded to an integer by
     ``mode``; ``negative`` is the sign of the value, which the directed modes need. ``rng``
     draws stochastic rounding (a fresh generator when None)."""
-    n = scaled.numerator // scaled.denominator
-    return n + _rounds_up(n, scaled - n, negative, mode, rng)
+    return round_ratio(scaled.numerator, scaled.denominator, negative, mode, rng)
 
 
 def exceeds_largest(x: ExactValue, fmt: Format, rounding: str) -> bool | None:

@@ -22,9 +22,9 @@ from typing import Any
 from ..formats import Format
 from .exact import ExactValue, floor_log2
 from .options import DEFAULT_OPTIONS, CastOptions
-from .rounding import effective_rounding, round_scaled
+from .rounding import effective_rounding, round_ratio
 
-__all__ = ["decode_exact", "encode_exact", "overflow_code", "nan_input_code"]
+__all__ = ["decode_exact", "encode_exact", "nan_input_code", "nan_payload_bits", "overflow_code"]
 
 
 def _signed(fmt: Format, negative: bool, magnitude_code: int) -> int:
@@ -49,6 +49,19 @@ def nan_input_code(fmt: Format, negative: bool) -> int:
     if fmt.has_nan:
         return _nan(fmt, negative)
     return _signed(fmt, negative, 0) if fmt.has_zero else 0
+
+
+def nan_payload_bits(fmt: Format, payload: Fraction | None) -> int:
+    """The payload bits a NaN brings into ``fmt``: the top t bits of the source's trailing
+    significand (``payload`` = T / 2^t_source) below the quiet bit, which the canonical quiet
+    NaN supplies (IEEE 754-2019 §6.2.3: a conversion keeps what fits and quiets; Berkeley
+    SoftFloat's f64_to_f16 does the same). 0 without a payload and for formats with a single
+    NaN or none; the vector kernel's ``(frac >> d) & (2^(t-1) - 1)`` is the same rule."""
+    t = fmt.significand_bits
+    if payload is None or fmt.specials != "ieee" or t <= 1:
+        return 0
+    top = payload.numerator * (1 << t) // payload.denominator  # floor(payload * 2^t) < 2^t
+    return top & ((1 << (t - 1)) - 1)
 
 
 def overflow_code(fmt: Format, negative: bool, rounding: str, overflow: str) -> int:
@@ -85,7 +98,7 @@ def encode_exact(
     """The code of ``x`` rounded once into ``fmt`` under ``options``."""
     neg = x.negative
     if x.is_nan:
-        return nan_input_code(fmt, neg)
+        return nan_input_code(fmt, neg) | nan_payload_bits(fmt, x.payload)
     if neg and not fmt.signed and not x.is_zero:
         # unsigned formats: negative numbers (and -Inf) are not representable
         return nan_input_code(fmt, False) if fmt.has_nan else 0
@@ -103,7 +116,10 @@ def encode_exact(
     if not fmt.has_zero and e < fmt.emin:
         return 0  # no zero to round to: everything below the smallest value becomes it
     q = max(e, fmt.emin) - t  # exponent of the unit in the last place
-    m = round_scaled(mag / Fraction(2) ** q, neg, mode, rng)
+    # |x| / 2^q as a ratio of integers
+    num, den = mag.numerator, mag.denominator
+    num, den = (num, den << q) if q >= 0 else (num << -q, den)
+    m = round_ratio(num, den, neg, mode, rng)
     if m >= 1 << t:  # normal (a subnormal may have rounded up into the first normal binade)
         if m == 1 << (t + 1):
             m >>= 1
@@ -120,12 +136,27 @@ def encode_exact(
 
 
 def decode_exact(code: int, fmt: Format) -> ExactValue:
-    """The exact value of one code (NaN and Inf keep their sign)."""
+    """The exact value of one code (NaN and Inf keep their sign; an IEEE NaN its payload,
+    the trailing significand T as T / 2^t)."""
     kind = fmt.classify(code)
     negative = bool(int(code) & fmt.sign_mask)
     if kind == "nan":
-        return ExactValue.nan(negative)
+        payload = None
+        if fmt.specials == "ieee":  # 'fn'/'fnuz' have one NaN: no payload to carry
+            payload = Fraction(int(code) & fmt.significand_mask, 1 << fmt.significand_bits)
+        return ExactValue.nan(negative, payload)
     if kind == "inf":
         return ExactValue.inf(negative)
-    value = fmt.code_value(int(code))
-    return ExactValue("finite", negative, abs(value))
+    # |value| = m * 2^(e - t) from the fields, built from integers (Format.code_value's rule)
+    code = int(code)
+    t = fmt.significand_bits
+    e_field = (code >> t) & fmt.exponent_field_max
+    m = code & fmt.significand_mask
+    if e_field == 0 and fmt.has_zero:
+        e = fmt.emin
+    else:
+        m |= 1 << t
+        e = e_field - fmt.bias
+    shift = e - t
+    mag = Fraction(m << shift) if shift >= 0 else Fraction(m, 1 << -shift)
+    return ExactValue("finite", negative, mag)

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING, Sequence
 
 from ..numerics.compare import Comparison, FormatRow
 from ..numerics.decimal_text import abbreviate_decimal, exact_decimal, readable_decimal
+from ..numerics.digits import fraction_text
 from ..numerics.exact import ExactValue, floor_log2
 from ..numerics.inspect import CodeClass
 from .compare_text import (
@@ -75,7 +76,7 @@ def _class_badge(row: FormatRow) -> str:
 
 
 def _frac_title(q: Fraction | None) -> str:
-    return "undefined" if q is None else f"exactly {q}"
+    return "undefined" if q is None else f"exactly {fraction_text(q)}"
 
 
 def _bit_runs(row: FormatRow) -> str:
@@ -117,8 +118,8 @@ def header_html(c: Comparison) -> str:
         setting += f" · rounded first via {c.via.name}"
     x = c.input
     if x.is_finite and not x.clamped:
-        full = exact_decimal(x.value)
-        shown = abbreviate_decimal(full, 40) if not full.endswith("…") else full
+        full = exact_decimal(x.value)  # already shortened beyond digits.FULL_DIGITS
+        shown = full if "…" in full else abbreviate_decimal(full, 40)
     else:
         full = shown = str(x)
     caption = " ".join(

@@ -8,7 +8,7 @@ from __future__ import annotations
 from fractions import Fraction
 
 from ..numerics.compare import Comparison, FormatRow
-from ..numerics.decimal_text import exact_decimal, readable_decimal
+from ..numerics.decimal_text import exact_decimal, readable_decimal, scientific
 from ..numerics.inspect import CodeClass
 
 __all__ = [
@@ -26,13 +26,28 @@ MINUS = "\u2212"  # typographic minus for exponents and signs shown to people
 
 
 def format_number(q: Fraction | None, digits: int = 4, signed: bool = False) -> str:
-    """A short display of an exact value: ``+1.4901e-09``, ``-0.4``, ``n/a`` for None."""
+    """A short display of an exact value: ``+1.4901e-09``, ``-0.4``, ``n/a`` for None.
+
+    Python's ``%g`` of ``float(q)`` where float64 holds q; beyond its range (an error of
+    1e400, a relative error of 1e-400) the same layout from the exact value
+    (``decimal_text.scientific``), never a float that overflows or flushes to 0."""
     if q is None:
         return "n/a"
     if q == 0:
         return "0"
-    text = f"{float(q):+.{digits}g}" if signed else f"{float(q):.{digits}g}"
-    return text
+    f = _float_or_none(q)
+    if f is None:
+        return scientific(q, digits, signed)
+    return f"{f:+.{digits}g}" if signed else f"{f:.{digits}g}"
+
+
+def _float_or_none(q: Fraction) -> float | None:
+    """float(q) when it is finite and nonzero (q != 0), else None."""
+    try:
+        f = float(q)
+    except OverflowError:
+        return None
+    return f if f != 0 else None
 
 
 def format_error(q: Fraction | None) -> str:
@@ -42,10 +57,11 @@ def format_error(q: Fraction | None) -> str:
     if q == 0:
         return "0"
     if q.denominator <= 12:
-        whole = q.numerator / q.denominator
+        whole = _float_or_none(q)  # None beyond float64's range: |q| >= 1/12 cannot underflow
         if q.denominator in (1, 2, 4, 5, 8, 10):
-            return f"{whole:+g}"
-        return f"{'+' if q > 0 else '-'}{abs(q.numerator)}/{q.denominator}"
+            return f"{whole:+g}" if whole is not None else scientific(q, 6, signed=True)
+        if whole is not None:
+            return f"{'+' if q > 0 else '-'}{abs(q.numerator)}/{q.denominator}"
     return format_number(q, 4, signed=True)
 
 

@@ -5,13 +5,17 @@ from __future__ import annotations
 from fractions import Fraction
 from typing import Any
 
+from ..numerics.decimal_text import decimal_digit_count
+from ..numerics.digits import full_digit_cap
 from ..numerics.exact import ExactValue
 
 __all__ = ["evaluation_text", "short_value"]
 
 
 def short_value(v: ExactValue, digits: int = 17) -> str:
-    """Short readable text for a value: exact when short, else ~17 significant digits."""
+    """Short readable text for a value: exact when short, else ~17 significant digits, with
+    the length of the exact expansion when it is too long to write (more than
+    ``digits.FULL_DIGITS`` digits: ``~1.0e+0 (131074 digits)`` for 1 + 2^-131073)."""
     sign = "-" if v.negative else ""
     if v.kind != "finite" or v.clamped:
         return str(v)
@@ -40,7 +44,11 @@ def short_value(v: ExactValue, digits: int = 17) -> str:
         e10 -= 1
         m = round(q * Fraction(10) ** (digits - 1 - e10))
     mantissa = str(m)
-    return f"{sign}~{mantissa[0]}.{mantissa[1:].rstrip('0') or '0'}e{e10:+d}"
+    text = f"{sign}~{mantissa[0]}.{mantissa[1:].rstrip('0') or '0'}e{e10:+d}"
+    count = decimal_digit_count(q)
+    if count is not None and count > full_digit_cap():
+        text += f" ({count} digits)"
+    return text
 
 
 def evaluation_text(ev: Any) -> str:
