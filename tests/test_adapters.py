@@ -508,3 +508,32 @@ def test_importing_adapters_loads_no_framework() -> None:
         [sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=120, check=True
     )
     assert result.stdout.strip() == "", f"imported at module import time: {result.stdout.strip()}"
+
+
+# ----- issue 16: file paths as untrusted text, compressed members -------------------------------
+
+
+def test_path_with_control_characters_is_named_escaped(tmp_path: Path) -> None:
+    path = tmp_path / "c\x1b[2J\n.npy"
+    np.save(path, np.array([1j]))
+    with pytest.raises(UnsupportedInputError) as info:
+        as_array(path)
+    assert "c\\x1b[2J\\n.npy: got complex data" in str(info.value)
+
+
+def test_compressed_npz_member_is_a_mapped_array_with_the_same_bits(tmp_path: Path) -> None:
+    bits = np.arange(256, dtype=np.uint8)  # every float8_e4m3fn pattern (ml_dtypes layout)
+    np.savez_compressed(tmp_path / "c.npz", w=bits)
+    out = as_array(tmp_path / "c.npz")
+    assert isinstance(out, np.memmap) and out.tolist() == bits.tolist()
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs POSIX named pipes")
+def test_fifo_path_is_refused_without_blocking(tmp_path: Path) -> None:
+    os.mkfifo(tmp_path / "p.npy")
+    code = ("import sys\nfrom bitprism.tensors.adapters import as_array\n"
+            "from bitprism.errors import BitprismError\n"
+            "try:\n    as_array(sys.argv[1])\nexcept BitprismError as exc:\n    print(exc)\n")
+    done = subprocess.run([sys.executable, "-c", code, str(tmp_path / "p.npy")],
+                          capture_output=True, text=True, timeout=30)
+    assert "p.npy: not a file: it is a FIFO (named pipe)" in done.stdout, done.stderr

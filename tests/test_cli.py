@@ -258,3 +258,250 @@ def test_scan_with_mx_column(capsys, tmp_path):
     # one block, amax 7e4 -> shared exponent 16 - 2 = 14: 1 and -3 flush to 0 (MX v1.0 §6.3)
     assert mx["underflow"] == 2 and code == 1
     assert data["tensors"][0]["formats"]["float16"]["overflow"] == 1
+
+
+# ----- issue 16: --fail-on classes, the result's NaN and Inf -----------------------------------
+
+def test_readme_ci_example_catches_an_inf_that_e4m3_makes_nan(capsys, tmp_path):
+    # README: `bitprism scan model.safetensors --formats bf16,fp16,e4m3 --fail-on nan,overflow`.
+    # float8_e4m3fn has no Inf: ml_dtypes casts +Inf to NaN (computed here), so the e4m3 result
+    # holds a NaN and the check must fail although the input holds none.
+    assert np.isnan(np.float32(np.inf).astype(ml_dtypes.float8_e4m3fn))
+    arr = np.array([1.0, np.inf, 2.0], dtype=np.float32)
+    header = json.dumps({"w": {"dtype": "F32", "shape": [3], "data_offsets": [0, 12]}})
+    path = tmp_path / "model.safetensors"
+    path.write_bytes(struct.pack("<Q", len(header)) + header.encode() + arr.tobytes())
+    for quantiles in ("exact", "none"):
+        code, out, err = run(capsys, "scan", str(path), "--formats", "bf16,fp16,e4m3", "--fail-on",
+                             "nan,overflow", "--no-progress", "--quantiles", quantiles)
+        assert code == 1 and err == "", err
+        assert "fails: nan" in out and "float8_e4m3fn 1 NaN" in out
+        assert out.rstrip().endswith("--fail-on nan,overflow: FAIL (nan)")
+
+
+# One value of each kind the cast treats apart: NaN, both Infs, both zeros, ordinary values,
+# negatives (invalid in unsigned formats), tiny values, and finite values beyond the largest
+# finite value of every format but float64 on both sides; none sits on a rounding tie.
+SPECIALS_DATA = np.array(
+    [np.nan, np.inf, -np.inf, 0.0, -0.0, 1.0, -3.0, 0.1, 2.0**-150, 7.0, -7.0, 30.5, -30.5,
+     250.0, -250.0, 1000.0, -1000.0, 7e4, -7e4, 1e6, -1e6, 1e39, -1e39, 1e300, -1e300],
+    dtype=np.float64,
+)
+# Stochastic rounding draws: only values whose result the draw cannot change (exact in every
+# format, or beyond every format's range by more than one step).
+STOCHASTIC_DATA = np.array([np.nan, np.inf, -np.inf, 0.0, -0.0, 1.0, -1.0, 0.5, 1e300, -1e300])
+# format kinds (specials convention, or unsigned) with an ml_dtypes/numpy counterpart
+KIND_FORMATS = {
+    "ieee": ["bfloat16", "float16", "float8_e5m2", "float8_e4m3", "float8_e3m4"],
+    "fn": ["float8_e4m3fn"],
+    "fnuz": ["float8_e4m3fnuz", "float8_e5m2fnuz", "float8_e4m3b11fnuz"],
+    "finite": ["float6_e2m3fn", "float6_e3m2fn", "float4_e2m1fn"],
+    "unsigned": ["float8_e5m3fnu", "float8_e8m0fnu"],
+}
+ROUNDINGS = ["roundTiesToEven", "roundTiesToAway", "roundTowardPositive", "roundTowardNegative",
+             "roundTowardZero", "stochastic"]
+
+
+def _expected_specials(x: np.ndarray, name: str, rounding: str, overflow: str) -> tuple[int, int]:
+    """(NaN, Inf) in the results, from ml_dtypes' casts (round to nearest even) and the rules
+    of the other modes: IEEE 754-2019 §7.4 (toward +Inf, a positive overflow is Inf and a
+    negative one the most negative finite value; toward -Inf the mirror; toward zero the largest
+    finite value) and saturation (ONNX Cast saturate=True: Inf and overflow to the largest
+    finite value). An unsigned format makes every negative value NaN whatever the options."""
+    dt = np.dtype(getattr(ml_dtypes, name, None) or getattr(np, name))
+    top = float(ml_dtypes.finfo(dt).max)
+
+    def kind(v: float) -> str:
+        with np.errstate(over="ignore", invalid="ignore"):  # overflow is what is looked at
+            r = float(np.array([v]).astype(dt)[0])
+        return "nan" if np.isnan(r) else "inf" if np.isinf(r) else "finite"
+
+    out = {"nan": 0, "inf": 0, "finite": 0}
+    with np.errstate(invalid="ignore"):
+        unsigned = not float(np.array([-1.0]).astype(dt)[0]) == -1.0
+    for v in map(float, x):
+        if np.isnan(v) or (unsigned and v < 0):
+            got = kind(v)
+        elif overflow == "saturate":
+            got = kind(min(max(v, -top), top))
+        elif np.isinf(v) or rounding in ("roundTiesToEven", "roundTiesToAway", "stochastic"):
+            got = kind(v)
+        elif rounding == "roundTowardPositive" and v > top:
+            got = kind(np.inf)
+        elif rounding == "roundTowardNegative" and v < -top:
+            got = kind(-np.inf)
+        else:
+            got = kind(min(max(v, -top), top))
+        out[got] += 1
+    return out["nan"], out["inf"]
+
+
+@pytest.mark.parametrize("overflow", ["standard", "saturate"])
+@pytest.mark.parametrize(
+    "quantiles, rounding",
+    # a counts-only scan refuses stochastic rounding (test_scan_counts_only_gives_the_same_counts)
+    [(q, r) for q in ("exact", "none") for r in ROUNDINGS if (q, r) != ("none", "stochastic")],
+)
+def test_scan_counts_the_results_nan_and_inf(capsys, tmp_path, quantiles, rounding, overflow):
+    data = STOCHASTIC_DATA if rounding == "stochastic" else SPECIALS_DATA
+    np.save(tmp_path / "x.npy", data)
+    names = [n for kind in KIND_FORMATS.values() for n in kind]
+    if quantiles == "none":
+        names.remove("float8_e8m0fnu")  # see test_e8m0_overflow_counts_only below
+    code, out, err = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", ",".join(names),
+                         "--rounding", rounding, "--overflow", overflow, "--quantiles", quantiles,
+                         "--seed", "7", "--json", "--no-progress", "--fail-on", "nan,inf,nonfinite")
+    assert err == "", err
+    rows = json.loads(out)["tensors"][0]["formats"]
+    for name in names:
+        want = _expected_specials(data, name, rounding, overflow)
+        got = rows[name]["result_nan"], rows[name]["result_inf"]
+        assert got == want, (name, got, want)
+        assert rows[name]["nan"] == 1 and rows[name]["inf"] == 2  # the input's, unchanged
+    assert code == 1  # the input holds NaN and Inf
+    assert json.loads(out)["failed"] == ["inf", "nan", "nonfinite"]  # sorted
+
+
+@pytest.mark.parametrize("quantiles", [
+    "exact",
+    "none",  # counts only: the overflow threshold comes from rounding.exceeds_largest
+])
+def test_e8m0_overflow_counts_only(capsys, tmp_path, quantiles):
+    # 1e39 > 2**127 * 1.5 (E8M0's largest value and its rounding midpoint with no significand
+    # bits, OCP MX v1.0 Table 7): ml_dtypes makes it NaN
+    data = np.array([1e39, 1.0])
+    with np.errstate(over="ignore"):
+        assert np.isnan(data.astype(ml_dtypes.float8_e8m0fnu)[0])
+    np.save(tmp_path / "x.npy", data)
+    _, out, _ = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", "e8m0", "--json",
+                    "--no-progress", "--quantiles", quantiles)
+    assert json.loads(out)["tensors"][0]["formats"]["float8_e8m0fnu"]["result_nan"] == 1
+
+
+@pytest.mark.parametrize("condition", ["nan", "inf", "nonfinite"])
+def test_fail_on_counts_cast_results(capsys, tmp_path, condition):
+    # 1e6: float16 overflows to Inf (IEEE 754 binary16 max 65504), float8_e4m3fn to NaN (no Inf)
+    with np.errstate(over="ignore"):
+        assert np.isinf(np.float64(1e6).astype(np.float16))
+    np.save(tmp_path / "x.npy", np.array([1.0, 1e6]))
+    for fmt, fails in (("fp16", condition in ("inf", "nonfinite")),
+                       ("e4m3", condition in ("nan", "nonfinite")), ("bf16", False)):
+        code, _, _ = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", fmt, "--fail-on",
+                         condition, "--no-progress", "--quantiles", "none")
+        assert code == (1 if fails else 0), (fmt, condition)
+
+
+def test_fail_on_subnormal(capsys, tmp_path):
+    np.save(tmp_path / "x.npy", np.array([1.0, 2.0**-20]))  # float16 subnormal (below 2**-14)
+    code, _, _ = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", "fp16", "--fail-on",
+                     "subnormal", "--no-progress")
+    assert code == 1
+    code, _, _ = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", "fp32", "--fail-on",
+                     "subnormal", "--no-progress")
+    assert code == 0
+
+
+def test_fail_on_help_defines_each_class(capsys):
+    code, out, _ = run(capsys, "scan", "--help")
+    text = " ".join(out.split())
+    assert code == 0
+    for words in ("nan: a NaN in the input or in any cast result", "inf: an Inf in the input or "
+                  "in any cast result", "nonfinite: either", "subnormal: a value whose result is "
+                  "subnormal", "default bfloat16,float16,float8_e4m3fn,float8_e5m2",
+                  "stochastic: away from zero with probability", "not with --quantiles none",
+                  "a .npy, .npz or .safetensors file", "--seed N", "--max-ratio R"):
+        assert words in text, words
+
+
+# ----- issue 16: seeds, names, words -----------------------------------------------------------
+
+def test_stochastic_scan_is_repeatable(capsys, tmp_path):
+    np.save(tmp_path / "x.npy", np.linspace(0.01, 1, 1000))
+    argv = ["scan", str(tmp_path / "x.npy"), "--formats", "e4m3", "--rounding", "stochastic",
+            "--no-progress", "--json"]
+    _, first, _ = run(capsys, *argv)
+    seed = json.loads(first)["seed"]
+    assert isinstance(seed, int) and 0 <= seed < 2**63  # drawn, then reported
+    _, again, _ = run(capsys, *argv, "--seed", str(seed))
+    assert json.loads(again) == json.loads(first)
+    _, text, _ = run(capsys, *argv[:-1], "--seed", str(seed))
+    assert f"--seed {seed} repeats it" in text
+
+
+def test_stochastic_show_names_its_seed(capsys):
+    code, out, _ = run(capsys, "show", "0.1", "--formats", "e4m3", "--rounding", "sr", "--json")
+    seed = json.loads(out)["seed"]
+    assert code == 0 and isinstance(seed, int)
+    _, again, _ = run(capsys, "show", "0.1", "--formats", "e4m3", "--rounding", "sr", "--json",
+                      "--seed", str(seed))
+    assert json.loads(again) == json.loads(out)
+    _, text, _ = run(capsys, "show", "0.1", "--formats", "e4m3", "--rounding", "sr", "--seed", "5")
+    assert "seed 5" in text
+
+
+@pytest.mark.parametrize("seed", ["-1", str(2**63), "x"])
+def test_bad_seed_exit_2(capsys, seed):
+    code, out, err = run(capsys, "show", "1", "--rounding", "sr", "--seed", seed)
+    assert code == 2 and out == "" and "--seed" in err and len(err.splitlines()) == 1
+
+
+def test_show_block_format_points_to_scan(capsys):
+    code, _, err = run(capsys, "show", "1", "--formats", "mxfp4")
+    assert code == 2 and len(err.splitlines()) == 1
+    assert "'mxfp4' is an MX block format" in err and "bitprism scan FILE --formats mxfp4" in err
+    assert "float4_e2m1fn" in err
+
+
+def test_scan_prints_names_escaped(capsys, tmp_path):
+    # a name holding an escape sequence, a line break that would forge a verdict line, and a
+    # lone surrogate (which a UTF-8 terminal cannot encode)
+    names = ["\x1b[31mred", "w\nfails: none", "\ud800"]
+    header, data = {}, b""
+    for i, name in enumerate(names):
+        header[name] = {"dtype": "F32", "shape": [1], "data_offsets": [4 * i, 4 * i + 4]}
+        data += np.float32([1.0]).tobytes()
+    text = json.dumps(header)  # json writes the surrogate as the escape \ud800
+    path = tmp_path / "n.safetensors"
+    path.write_bytes(struct.pack("<Q", len(text)) + text.encode() + data)
+    code, out, err = run(capsys, "scan", str(path), "--formats", "fp16", "--no-progress",
+                         "--fail-on", "nan")
+    assert code == 0 and err == ""
+    for line in out.splitlines():
+        assert line.isprintable(), repr(line)
+    assert "== \\x1b[31mred (1, float32) ==" in out and "== w\\nfails: none (1, float32) ==" in out
+    assert "== \\ud800 (1, float32) ==" in out
+    code, out, _ = run(capsys, "scan", str(path), "--formats", "fp16", "--no-progress", "--json")
+    out.encode("ascii")  # ASCII escapes: valid JSON whatever the names hold
+    assert [t["name"] for t in json.loads(out)["tensors"]] == names
+
+
+def test_formats_lists_every_alias(capsys):
+    from bitprism.formats import format_aliases
+
+    code, out, _ = run(capsys, "formats")
+    assert code == 0 and out.endswith("\n") and not out.endswith("\n\n")
+    for alias in format_aliases():
+        line = next(l for l in out.splitlines() if l.startswith(f"  {alias.format} "))
+        assert alias.name in line.replace("*", "").split(", ") or f" {alias.name}" in line
+    assert ("e4m3 -> float8_e4m3fn: the OCP E4M3 without Inf (largest 448); the IEEE-style "
+            "E4M3 with Inf (largest 240) is float8_e4m3") in out
+    assert "float -> float32" in out and "get_format(float) gives float64" in out
+    code, out, _ = run(capsys, "formats", "--json")
+    assert out.endswith("}\n")
+    listed = {a["name"]: (a["format"], a["note"]) for a in json.loads(out)["aliases"]}
+    assert listed == {a.name: (a.format, a.note) for a in format_aliases()}
+
+
+@pytest.mark.parametrize("quantiles", ["exact", "none"])
+def test_mx_block_with_an_inf_is_all_nan(capsys, tmp_path, quantiles):
+    # OCP MX v1.0 §6.3: a block holding NaN or Inf gets the NaN scale, so each of its 32
+    # values is NaN; the next block, all finite, keeps finite values
+    data = np.concatenate([np.linspace(-1, 1, 32), np.linspace(-2, 2, 32)])
+    data[3] = np.inf
+    np.save(tmp_path / "x.npy", data)
+    code, out, _ = run(capsys, "scan", str(tmp_path / "x.npy"), "--formats", "mxfp4,mxfp8_e5m2",
+                       "--json", "--no-progress", "--quantiles", quantiles, "--fail-on", "nan")
+    rows = json.loads(out)["tensors"][0]["formats"]
+    for name in ("mxfp4", "mxfp8_e5m2"):
+        assert (rows[name]["result_nan"], rows[name]["result_inf"]) == (32, 0), name
+    assert code == 1

@@ -293,7 +293,7 @@ def test_text_table_exact_at_fixed_width() -> None:
     # stored values shown exactly when short: E4M3 0x1D = 13/128 = 0.1015625 (from library)
     c = compare("0.1", formats=("float8_e4m3fn", "float4_e2m1fn"))
     expected = "\n".join([
-        "input 0.1  = 0.1",
+        "input 0.1 = 0.1",
         "roundTiesToEven, overflow standard, subnormals keep",
         "format         class      value       ulp err      rel err  bits (sign exponent significand)  events",
         "float8_e4m3fn  normal     0.1015625      +0.2     +0.01562  0 0011 101",

@@ -11,7 +11,10 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import struct
+import subprocess
+import sys
 import zipfile
 from pathlib import Path
 from typing import Any
@@ -666,7 +669,9 @@ def test_damaged_files_give_a_clear_error_or_read(tmp_path_factory: pytest.TempP
     try:
         tensors = open_tensors(path)
         for name in tensors:
-            np.asarray(tensors[name]).sum()
+            # every byte read; tobytes, not sum: a damaged descr may be a valid structured
+            # dtype ('<f4,'), which the reader returns and as_array refuses later
+            np.asarray(tensors[name]).tobytes()
     except BitprismError as exc:
         assert kind in str(exc)
 
@@ -710,3 +715,225 @@ def test_path_must_be_text_or_pathlike() -> None:
 def test_repr_lists_names(tmp_path: Path) -> None:
     path = write_safetensors(tmp_path / "r.safetensors", {"w": ("U8", [1], b"\x01")})
     assert repr(open_tensors(path)).endswith("safetensors, 1 tensor: 'w')")
+
+
+# ----- issue 16: every dimension checked, odd names, non-regular files, streamed members -----
+
+_BIG = 2**63  # one past numpy's largest dimension (npy_intp, int64 here)
+
+
+@pytest.mark.parametrize(
+    "shape, got",
+    [
+        # a zero dimension makes the product 0, so a size check alone let these through to
+        # numpy, which then failed with its own errors (issue 16 item 9 reproducers)
+        ((0, _BIG), str(_BIG)),
+        ((True,), "True"),
+        ((-1,), "-1"),
+    ],
+    ids=["zero-beside-2**63", "bool", "negative"],
+)
+def test_npy_every_dimension_is_checked(tmp_path: Path, shape: tuple[Any, ...], got: str) -> None:
+    path = tmp_path / "d.npy"
+    path.write_bytes(_npy_bytes("<f4", shape, bytes(4)))
+    with pytest.raises(BitprismError, match=rf"d\.npy: has shape .*; expected a list of integers "
+                                            rf">= 0 and below 2\*\*63, got {got}$"):
+        open_tensors(path)
+
+
+def test_npy_zero_size_with_huge_dimensions_follows_numpy(tmp_path: Path) -> None:
+    # numpy's own rule (ctors.c, "array is too big"): the non-zero dimensions times the item size
+    # must fit in npy_intp. The test asks numpy which shapes it builds and expects the same.
+    for shape in [(0, 2**60), (0, 2**61), (0, 2**40, 2**40)]:
+        path = tmp_path / "z.npy"
+        path.write_bytes(_npy_bytes("<f4", shape, b""))
+        try:
+            np.zeros(shape, np.float32)
+        except ValueError:
+            with pytest.raises(BitprismError, match=r"z\.npy: has shape .* exceed numpy's limit"):
+                open_tensors(path)
+        else:
+            arr = open_tensor(path)
+            assert arr.shape == shape and arr.dtype == np.float32
+
+
+def test_npy_more_dimensions_than_numpy_allows(tmp_path: Path) -> None:
+    path = tmp_path / "m.npy"
+    path.write_bytes(_npy_bytes("<f4", (1,) * 70, bytes(4)))
+    with pytest.raises(BitprismError, match=r"m\.npy: has 70 dimensions; numpy allows at most"):
+        open_tensors(path)
+
+
+@pytest.mark.parametrize("compression", [zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED], ids=["stored", "deflated"])
+def test_npz_member_every_dimension_is_checked(tmp_path: Path, compression: int) -> None:
+    path = tmp_path / "m.npz"
+    with zipfile.ZipFile(path, "w", compression=compression) as zf:
+        zf.writestr("a.npy", _npy_bytes("<f4", (0, _BIG), b""))
+    with pytest.raises(BitprismError, match=r"m\.npz: member 'a\.npy' has shape \[0, 9223372036854775808\]"):
+        open_tensor(path)
+
+
+@pytest.mark.parametrize(
+    "shape, problem",
+    [
+        ([0, 10**30], r"has shape \[0, 10{30}\]; expected a list of integers >= 0 and below 2\*\*63"),
+        ([2**31, 2**31, 2**31, 0], r"has shape \[2147483648, 2147483648, 2147483648, 0\]: "
+                                   r"9903520314283042199192993792 items of 4 bytes .* exceed numpy's limit"),
+    ],
+    ids=["zero-beside-1e30", "zero-beside-2**93"],
+)
+def test_safetensors_zero_dimension_does_not_hide_the_others(tmp_path: Path, shape: list[int],
+                                                             problem: str) -> None:
+    path = write_raw_safetensors(
+        tmp_path / "z.safetensors",
+        json.dumps({"a": {"dtype": "F32", "shape": shape, "data_offsets": [0, 0]}}).encode(),
+    )
+    with pytest.raises(BitprismError, match=r"z\.safetensors: tensor 'a' " + problem):
+        open_tensors(path)
+
+
+@pytest.mark.parametrize("where", ["shape", "metadata"])
+def test_safetensors_huge_integer_is_refused_while_parsing(tmp_path: Path, where: str) -> None:
+    # Python refuses int() of more than sys.int_info.default_max_str_digits digits (4300; Python
+    # docs, "Integer string conversion length limitation") with a bare ValueError
+    digits = sys.int_info.default_max_str_digits + 1
+    huge = "9" * digits
+    if where == "shape":
+        text = '{"a": {"dtype": "F32", "shape": [%s], "data_offsets": [0, 0]}}' % huge
+    else:
+        text = '{"__metadata__": {"n": %s}, "a": {"dtype": "F32", "shape": [0], "data_offsets": [0, 0]}}' % huge
+    path = write_raw_safetensors(tmp_path / "h.safetensors", text.encode())
+    with pytest.raises(BitprismError, match=rf"h\.safetensors: header holds an integer of {digits} digits"):
+        open_tensors(path)
+
+
+def test_safetensors_names_are_kept_as_written(tmp_path: Path) -> None:
+    # JSON strings may hold any code point, lone surrogates included (RFC 8259 §7 allows the
+    # escape); the reader keeps them, and the command line escapes them when it prints
+    header = b'{"\\ud800": {"dtype": "U8", "shape": [1], "data_offsets": [0, 1]}, ' \
+             b'"\\u001b[31m\\nfails: none": {"dtype": "U8", "shape": [1], "data_offsets": [1, 2]}}'
+    path = write_raw_safetensors(tmp_path / "n.safetensors", header, b"\x01\x02")
+    assert list(open_tensors(path)) == ["\ud800", "\x1b[31m\nfails: none"]
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs POSIX named pipes")
+@pytest.mark.parametrize("name", ["pipe", "pipe.npy", "pipe.safetensors"])
+def test_fifo_is_refused_before_it_is_opened(tmp_path: Path, name: str) -> None:
+    # opening a FIFO for reading blocks until a writer comes; run in a subprocess so a
+    # regression shows as a timeout, not a hung suite
+    os.mkfifo(tmp_path / name)
+    code = ("import sys\nfrom bitprism.tensors.files import open_tensors\n"
+            "from bitprism.errors import BitprismError\n"
+            "try:\n    open_tensors(sys.argv[1])\nexcept BitprismError as exc:\n    print(exc)\n")
+    done = subprocess.run([sys.executable, "-c", code, str(tmp_path / name)], capture_output=True,
+                          text=True, timeout=30)
+    assert f"{name}: not a file: it is a FIFO (named pipe)" in done.stdout, done.stderr
+
+
+@pytest.mark.skipif(not os.path.exists("/dev/null"), reason="needs /dev/null")
+def test_device_behind_a_symlink_is_refused(tmp_path: Path) -> None:
+    os.symlink("/dev/null", tmp_path / "w.npy")
+    with pytest.raises(BitprismError, match=r"w\.npy: not a file: it is a character device"):
+        open_tensors(tmp_path / "w.npy")
+
+
+def test_dangling_symlink_says_so(tmp_path: Path) -> None:
+    os.symlink(tmp_path / "gone.npy", tmp_path / "w.npy")
+    with pytest.raises(BitprismError, match=r"w\.npy: no such file \(a symbolic link to a missing file\)"):
+        open_tensors(tmp_path / "w.npy")
+
+
+def test_path_with_control_characters_is_shown_escaped(tmp_path: Path) -> None:
+    path = tmp_path / "a\x1b[2Jb\n.npy"
+    with pytest.raises(BitprismError) as info:
+        open_tensors(path)
+    assert "a\\x1b[2Jb\\n.npy: no such file" in str(info.value)
+
+
+def _deflated_npz(path: Path, arr: np.ndarray, method: int = zipfile.ZIP_DEFLATED) -> None:
+    with zipfile.ZipFile(path, "w", compression=method) as zf:
+        with zf.open("a.npy", "w", force_zip64=True) as f:
+            np.lib.format.write_array(f, arr)
+
+
+def test_npz_compressed_member_is_streamed_into_a_mapped_file(tmp_path: Path) -> None:
+    a = np.arange(3 * 5, dtype=np.float32).reshape(3, 5)
+    for order, arr in (("C", a), ("F", np.asfortranarray(a))):
+        path = tmp_path / f"{order}.npz"
+        _deflated_npz(path, arr)
+        tf = open_tensors(path)
+        got = tf["a"]
+        assert isinstance(got, np.memmap) and not got.flags.writeable
+        np.testing.assert_array_equal(got, a)  # numpy's own writer made the member
+        assert got.flags.f_contiguous == (order == "F")
+        tf.release("a")
+        assert tf["a"] is not got  # read again after release
+
+
+def test_npz_compressed_member_keeps_bits(tmp_path: Path) -> None:
+    bits = np.arange(1 << 16, dtype=np.uint16)  # every float16 pattern, NaN payloads included
+    path = tmp_path / "b.npz"
+    np.savez_compressed(path, h=bits.view(np.float16))
+    assert open_tensor(path).view(np.uint16).tolist() == bits.tolist()
+
+
+def test_npz_compressed_zero_size_member(tmp_path: Path) -> None:
+    path = tmp_path / "e.npz"
+    np.savez_compressed(path, e=np.zeros((0, 3), np.float16))
+    arr = open_tensor(path)
+    assert arr.shape == (0, 3) and arr.dtype == np.float16
+
+
+def test_npz_ratio_cap(tmp_path: Path) -> None:
+    zeros = np.zeros(1 << 20, np.float32)
+    path = tmp_path / "bz.npz"
+    _deflated_npz(path, zeros, zipfile.ZIP_BZIP2)  # bzip2 packs zeros far beyond 1100:1
+    info = zipfile.ZipFile(path).infolist()[0]
+    ratio = info.file_size / info.compress_size
+    assert ratio > 1100
+    with pytest.raises(BitprismError, match=r"bz\.npz: member 'a\.npy' declares \d+ bytes from \d+ "
+                                            r"compressed \(more than 1100 times as many\)"):
+        open_tensor(path)
+    assert not open_tensor(path, max_ratio=None).any()
+    assert not open_tensor(path, max_ratio=ratio + 1).any()
+    np.savez_compressed(tmp_path / "d.npz", z=np.zeros(1 << 22, np.float32))  # deflate's best
+    assert not open_tensor(tmp_path / "d.npz").any()
+
+
+@pytest.mark.parametrize("bad", [0, 0.5, -3, float("nan"), True, "10", [1]])
+def test_max_ratio_must_be_a_number_of_at_least_one(tmp_path: Path, bad: Any) -> None:
+    np.save(tmp_path / "w.npy", np.ones(2))
+    with pytest.raises(BitprismError, match=r"max_ratio must be a number >= 1 .* or None for no cap; got"):
+        open_tensors(tmp_path / "w.npy", max_ratio=bad)
+
+
+@pytest.mark.skipif(sys.platform != "linux", reason="reads the peak resident set of a Linux process")
+def test_npz_compressed_member_is_not_decompressed_in_memory(tmp_path: Path) -> None:
+    # 256 MiB of float32 deflated to about 1 MiB. Before, opening the member allocated all of it
+    # (numpy.lib.format.read_array); now it goes to a temporary file in 4 MiB chunks.
+    n = (256 << 20) // 4
+    path = tmp_path / "big.npz"
+    header = io.BytesIO()
+    np.lib.format.write_array_header_1_0(header, {"descr": "<f4", "fortran_order": False, "shape": (n,)})
+    with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as zf, zf.open("w.npy", "w", force_zip64=True) as f:
+        f.write(header.getvalue())
+        block = np.zeros(1 << 22, np.float32)
+        block[:: 1 << 12] = 1.5
+        for _ in range(n // block.size):
+            f.write(block.tobytes())
+    # VmHWM (peak resident set of this process image, proc(5)); ru_maxrss would carry the
+    # peak of the pytest process the child was forked from across exec
+    code = (
+        "import re, sys\n"
+        "def peak():\n"
+        "    return int(re.search(r'VmHWM:\\s+(\\d+)', open('/proc/self/status').read())[1])\n"
+        "from bitprism.tensors.files import open_tensor\n"
+        "before = peak()\n"
+        "arr = open_tensor(sys.argv[1])\n"
+        "assert arr.shape == (%d,) and float(arr[1 << 12]) == 1.5\n"
+        "print((peak() - before) // 1024)\n" % n
+    )
+    done = subprocess.run([sys.executable, "-c", code, str(path)], capture_output=True, text=True,
+                          timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert int(done.stdout.split()[-1]) < 48, done.stdout  # MiB; before: 256 and more

@@ -450,3 +450,60 @@ def test_widest_custom_formats_that_fit_float64():
         bitprism.Format("high2", 10, 5, bias=-2)  # emax 1024
     with pytest.raises(bitprism.BitprismError, match="bias"):
         bitprism.Format("e11fn", 11, 52, specials="fn")  # emax 1024 with the all-ones binade
+
+
+# ----- aliases (issue 16 item 17) -----------------------------------------------------------------
+# Every alias and what it resolved to before the table existed: a script written against one
+# version reads the same format in the next.
+PINNED_ALIASES = {
+    "fp64": "float64", "f64": "float64", "double": "float64", "binary64": "float64",
+    "fp32": "float32", "f32": "float32", "single": "float32", "binary32": "float32",
+    "float": "float32", "tensorfloat32": "tf32", "bf16": "bfloat16", "fp16": "float16",
+    "f16": "float16", "half": "float16", "binary16": "float16", "e5m2": "float8_e5m2",
+    "fp8_e5m2": "float8_e5m2", "e4m3": "float8_e4m3fn", "e4m3fn": "float8_e4m3fn",
+    "fp8_e4m3": "float8_e4m3fn", "fp8": "float8_e4m3fn", "e3m4": "float8_e3m4",
+    "e4m3fnuz": "float8_e4m3fnuz", "e5m2fnuz": "float8_e5m2fnuz",
+    "e4m3b11fnuz": "float8_e4m3b11fnuz", "e5m3fnu": "float8_e5m3fnu", "e8m0": "float8_e8m0fnu",
+    "e8m0fnu": "float8_e8m0fnu", "fp6": "float6_e2m3fn", "fp6_e2m3": "float6_e2m3fn",
+    "e2m3": "float6_e2m3fn", "fp6_e3m2": "float6_e3m2fn", "e3m2": "float6_e3m2fn",
+    "fp4": "float4_e2m1fn", "fp4_e2m1": "float4_e2m1fn", "e2m1": "float4_e2m1fn",
+}
+
+
+def test_alias_table_lists_every_alias_and_resolves_as_before():
+    from bitprism.formats import format_aliases, format_key
+
+    table = format_aliases()
+    assert {a.name: a.format for a in table} == PINNED_ALIASES
+    assert len({a.name for a in table}) == len(table)
+    for a in table:
+        assert a.name == format_key(a.name) and a.name not in bitprism.FORMATS
+        assert bitprism.get_format(a.name) is bitprism.FORMATS[a.format]
+
+
+def test_aliases_that_could_mean_another_format_say_what_they_mean():
+    from bitprism.formats import format_aliases
+
+    notes = {a.name: a.note for a in format_aliases() if a.note}
+    assert set(notes) == {"float", "e4m3", "fp8_e4m3", "fp8", "fp6"}
+    # e4m3 is the OCP E4M3 (no Inf, max 448: OFP8 rev 1.0); float8_e4m3 the IEEE-style one
+    # (max 240); the figures come from ml_dtypes' finfo here
+    assert float(ml_dtypes.finfo(ml_dtypes.float8_e4m3fn).max) == 448
+    assert float(ml_dtypes.finfo(ml_dtypes.float8_e4m3).max) == 240
+    for name in ("e4m3", "fp8_e4m3", "fp8"):
+        assert "without Inf (largest 448)" in notes[name] and "float8_e4m3" in notes[name]
+    # "float" is C's float; Python's float is numpy's float64 (np.dtype(float))
+    assert bitprism.get_format("float").name == "float32"
+    assert bitprism.get_format(float).name == np.dtype(float).name == "float64"
+    assert "get_format(float) gives float64" in notes["float"]
+    assert "fp6_e3m2" in notes["fp6"]
+
+
+def test_format_aliases_of_one_format():
+    from bitprism.formats import format_aliases
+
+    assert [a.name for a in format_aliases("float16")] == ["fp16", "f16", "half", "binary16"]
+    assert [a.name for a in format_aliases("e4m3")] == ["e4m3", "e4m3fn", "fp8_e4m3", "fp8"]
+    assert format_aliases("float8_e4m3") == ()
+    with pytest.raises(bitprism.BitprismError, match="unknown format 'fp17'"):
+        format_aliases("fp17")

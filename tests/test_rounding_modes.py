@@ -299,3 +299,24 @@ def test_extra_memory_is_the_fixed_scratch(rounding: str) -> None:
         peaks.append(peak - out.nbytes)
     assert max(peaks) <= budget, (peaks, budget)
     assert abs(peaks[1] - peaks[0]) <= 64 << 10  # independent of the input size
+
+
+@pytest.mark.parametrize("target", ["float64", "float32"])
+@pytest.mark.parametrize("mode", ["roundTiesToEven", "roundTiesToAway", "roundTowardPositive",
+                                  "roundTowardNegative", "roundTowardZero", "stochastic"])
+@pytest.mark.parametrize("overflow", ["standard", "saturate"])
+def test_casts_into_the_sources_own_precision(target: str, mode: str, overflow: str) -> None:
+    """float32/float64 data cast into formats of the source's own precision through the
+    kernel's general path (saturate or a directed mode keep it off the copy shortcut): every
+    value is representable, so the result is the input (stochastic rounding once asserted that
+    it had random bits it never drew there)."""
+    x = np.array([0.0, -0.0, 1e-45, -3e-39, 1.5, -2.75, 3.4e38, np.inf, -np.inf], np.float32)
+    for data in (x, x.astype(np.float64)):
+        if target == "float32" and data.dtype == np.float64:
+            data = data.astype(np.float32).astype(np.float64)  # values float32 holds exactly
+        got = bitprism.cast(data, target, rounding=mode, overflow=overflow, seed=1)
+        want = data.astype(np.float64)
+        if overflow == "saturate":  # OCP saturating conversion: Inf inputs become +-max
+            top = float(bitprism.get_format(target).max_finite)
+            want = np.clip(want, -top, top)
+        assert np.array_equal(got, want) and np.array_equal(np.signbit(got), np.signbit(want))

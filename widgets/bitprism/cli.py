@@ -4,12 +4,14 @@
 
     bitprism show 2**-24 --formats fp32,bf16,fp16,e4m3      # one value across formats
     bitprism scan model.safetensors --formats fp16,e4m3 --fail-on nan,inf,overflow
-    bitprism formats                                         # the built-in formats
+    bitprism formats                                         # the built-in formats and aliases
 
 Exit status: 0 success; 1 when ``scan --fail-on`` found one of the named conditions (so a
 pipeline can refuse a checkpoint); 2 for a bad argument, an unknown format or an unreadable
 file, with one line on stderr and no traceback. ``--json`` prints one JSON object on stdout
 (plain dicts; exact values as strings that ``bitprism.numerics.parse`` reads back exactly).
+File and tensor names are printed with control and other non-printable characters escaped
+(``\x1b``, ``\n``, ``\ud800``), so a name can neither drive the terminal nor forge a line.
 
 Never imports ipywidgets, IPython or matplotlib.
 """
@@ -26,7 +28,9 @@ from typing import Any, Sequence
 
 from ._version import __version__
 from .errors import BitprismError, ParseError
-from .formats import FORMATS, Format, get_format
+from .formats import FORMATS, Format, format_aliases, format_key, get_format
+from .tensors.file_checks import printable
+from .tensors.npz_members import DEFAULT_MAX_RATIO
 
 __all__ = ["main"]
 
@@ -34,9 +38,23 @@ EXIT_OK = 0
 EXIT_FAILED_CHECK = 1
 EXIT_USAGE = 2
 
-FAIL_CONDITIONS = ("nan", "inf", "overflow", "underflow")
+FAIL_CONDITIONS = ("nan", "inf", "nonfinite", "overflow", "underflow", "subnormal")
+_FAIL_HELP = (
+    "exit 1 if any tensor meets one of these comma-separated conditions in any format. "
+    "nan: a NaN in the input or in any cast result (an Inf or an overflow cast into a format "
+    "without Inf such as float8_e4m3fn becomes NaN; so does a negative value cast into an "
+    "unsigned format, a zero into float8_e8m0fnu, and every value of an MX block holding a "
+    "NaN or Inf); inf: an Inf in the input or in any cast result; nonfinite: either; "
+    "overflow, underflow, subnormal: as the table counts them (overflow: a finite value "
+    "beyond the largest finite one once rounded; underflow: a nonzero value that becomes "
+    "zero; subnormal: a value whose result is subnormal). With directed rounding an overflow "
+    "becomes Inf on one side and the largest finite value on the other (IEEE 754 7.4); the "
+    "result's NaN and Inf are counted exactly, by one more pass over the data when the "
+    "counts alone cannot tell the sides apart"
+)
 _DEFAULT_SHOW_FORMATS = "float32,bfloat16,float16,float8_e4m3fn,float8_e5m2"
 _DEFAULT_SCAN_FORMATS = "bfloat16,float16,float8_e4m3fn,float8_e5m2"
+_SEED_LIMIT = 1 << 63  # seeds are kept as 63-bit integers (as scan() draws them)
 
 
 class _UsageError(Exception):
@@ -66,14 +84,19 @@ def _resolve_formats(text: str, allow_mx: bool) -> list[Any]:
             continue
         except BitprismError as exc:
             error = exc
-        if allow_mx:
-            from .tensors.scan import scan_format
+        from .tensors.mx import MX_FORMATS
 
-            try:
-                out.append(scan_format(name))  # the OCP MX block formats by name
-                continue
-            except BitprismError:
-                pass
+        block = MX_FORMATS.get(format_key(name))
+        if block is not None and allow_mx:
+            out.append(block)  # the OCP MX block formats by name
+            continue
+        if block is not None:
+            raise _UsageError(
+                f"{name!r} is an MX block format (one shared scale per block of "
+                f"{block.block_size} values): it applies to tensors, so use it with "
+                f"`bitprism scan FILE --formats {name}`; show takes element formats such as "
+                f"{block.element.name if block.element is not None else 'float8_e4m3fn'}"
+            )
         raise _UsageError(str(error).replace("\n", " "))
     return out
 
@@ -91,21 +114,52 @@ def _fail_conditions(text: str | None) -> list[str]:
 
 
 def _options(args: argparse.Namespace) -> Any:
+    """The cast options of the command line; stochastic rounding without --seed draws a seed
+    here, once, so the output can name it and a second run with --seed repeats the first."""
     from .numerics.options import CastOptions
 
-    return CastOptions(args.rounding, args.overflow, args.subnormals)
+    options = CastOptions(args.rounding, args.overflow, args.subnormals)
+    seed = args.seed
+    if seed is not None and not 0 <= seed < _SEED_LIMIT:
+        raise _UsageError(f"--seed must be an integer in 0..2**63-1; got {seed!r}")
+    if seed is None and options.rounding == "stochastic":
+        import numpy as np
+
+        seed = int(np.random.SeedSequence().generate_state(1, np.uint64)[0] >> np.uint64(1))
+    return CastOptions(options.rounding, options.overflow, options.subnormals, seed)
 
 
-def _add_cast_options(p: argparse.ArgumentParser) -> None:
+def _add_cast_options(p: argparse.ArgumentParser, scan: bool) -> None:
     from .numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES
 
+    stochastic = (
+        "; stochastic: away from zero with probability equal to the distance from the "
+        "neighbour toward zero, in units of the gap between the two neighbours, else toward zero"
+    )
+    if scan:
+        stochastic += " (it needs a full scan: not with --quantiles none)"
     p.add_argument(
         "--rounding",
         default="roundTiesToEven",
-        help=f"rounding direction: {', '.join(ROUNDING_MODES[:5])} (or rne, rtz, ...)",
+        help=f"rounding direction (default %(default)s): {', '.join(ROUNDING_MODES[:5])} "
+        f"(or rne, rna, rtp, rtn, rtz){stochastic}",
     )
-    p.add_argument("--overflow", default="standard", help=f"one of {', '.join(OVERFLOW_MODES)}")
-    p.add_argument("--subnormals", default="keep", help=f"one of {', '.join(SUBNORMAL_MODES)}")
+    p.add_argument(
+        "--seed",
+        type=int,
+        metavar="N",
+        help="seed of stochastic rounding, an integer in 0..2**63-1 (without it one is drawn "
+        "and printed, so a run can be repeated)",
+    )
+    p.add_argument(
+        "--overflow", default="standard", help=f"one of {', '.join(OVERFLOW_MODES)} (default "
+        "%(default)s: as IEEE 754 7.4 for the rounding direction, NaN standing in for Inf in a "
+        "format without Inf; saturate: the largest finite value)"
+    )
+    p.add_argument(
+        "--subnormals", default="keep", help=f"one of {', '.join(SUBNORMAL_MODES)} (default "
+        "%(default)s)"
+    )
 
 
 def _build_parser() -> argparse.ArgumentParser:
@@ -123,28 +177,37 @@ def _build_parser() -> argparse.ArgumentParser:
         "formats.",
     )
     show.add_argument("value", metavar="VALUE", help="a number or expression, read exactly")
-    show.add_argument("--formats", default=_DEFAULT_SHOW_FORMATS, help="comma-separated names")
-    _add_cast_options(show)
+    show.add_argument(
+        "--formats",
+        default=_DEFAULT_SHOW_FORMATS,
+        help="comma-separated format names or aliases (see `bitprism formats`); default "
+        "%(default)s",
+    )
+    _add_cast_options(show, scan=False)
     show.add_argument("--json", action="store_true", help="machine-readable output")
 
     scan = sub.add_parser(
         "scan",
         help="what a cast does to the tensors of a file",
-        description="Survival table of each tensor of a .npy, .npz or .safetensors file.",
+        description="Survival table of each tensor of a .npy, .npz or .safetensors file: for "
+        "each format, how many values overflow, underflow, land subnormal or survive exactly, "
+        "and the error of the rest. Exit 1 when --fail-on finds one of its conditions.",
     )
-    scan.add_argument("file", metavar="FILE")
+    scan.add_argument(
+        "file",
+        metavar="FILE",
+        help="a .npy, .npz or .safetensors file (a file with another suffix is recognised by "
+        "its first bytes)",
+    )
     scan.add_argument("--tensor", metavar="NAME", help="only this tensor of the file")
     scan.add_argument(
         "--formats",
         default=_DEFAULT_SCAN_FORMATS,
-        help="comma-separated names (MX block formats such as mxfp4 allowed)",
+        help="comma-separated format names or aliases, MX block formats such as mxfp4 "
+        "included (see `bitprism formats`); default %(default)s",
     )
-    _add_cast_options(scan)
-    scan.add_argument(
-        "--fail-on",
-        metavar="CONDITIONS",
-        help="exit 1 if any of nan,inf,overflow,underflow occurs in any tensor and format",
-    )
+    _add_cast_options(scan, scan=True)
+    scan.add_argument("--fail-on", metavar="CONDITIONS", help=_FAIL_HELP)
     scan.add_argument(
         "--quantiles",
         choices=("exact", "histogram", "none"),
@@ -152,10 +215,24 @@ def _build_parser() -> argparse.ArgumentParser:
         help="error quantiles: exact (default), histogram (one pass, within 0.4%%) or none "
         "(counts only, the fastest: enough for --fail-on)",
     )
+    scan.add_argument(
+        "--max-ratio",
+        type=float,
+        default=DEFAULT_MAX_RATIO,
+        metavar="R",
+        help="refuse a compressed .npz member that declares more than R times its compressed "
+        "size (default %(default)g, above deflate's limit of about 1032, so numpy's own "
+        "files pass); 0 lifts the cap",
+    )
     scan.add_argument("--json", action="store_true", help="machine-readable output")
     scan.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
 
-    fmts = sub.add_parser("formats", help="list the built-in formats")
+    fmts = sub.add_parser(
+        "formats",
+        help="list the built-in formats and their aliases",
+        description="The built-in formats, the names that resolve to them, and the MX block "
+        "formats.",
+    )
     fmts.add_argument("--json", action="store_true", help="machine-readable output")
     return parser
 
@@ -259,6 +336,7 @@ def _cmd_show(args: argparse.Namespace) -> int:
             "overflow": options.overflow,
             "subnormals": options.subnormals,
             "formats": records,
+            "seed": options.seed,
         }
         print(json.dumps(payload, ensure_ascii=False))
         return EXIT_OK
@@ -274,19 +352,31 @@ def _cmd_show(args: argparse.Namespace) -> int:
 # ----- scan -----------------------------------------------------------------------------------
 
 
-def _format_name(fmt: Any) -> str:
-    return str(getattr(fmt, "name", fmt))
-
-
 def _conditions_met(summary: dict[str, dict[str, Any]], wanted: list[str]) -> list[str]:
-    """The ``wanted`` conditions found in one tensor's per-format counts."""
-    met = []
-    for condition in wanted:
-        for counts in summary.values():
-            if int(counts.get(condition, 0) or 0) > 0:
-                met.append(condition)
-                break
-    return met
+    """The ``wanted`` conditions found in one tensor's per-format counts (``_counts``)."""
+    return [c for c in wanted if any(int(counts.get(c) or 0) > 0 for counts in summary.values())]
+
+
+def _scan_one(tensors: Any, name: str, formats: list[Any], options: Any, args: Any) -> Any:
+    """The scan of one tensor; an error names the file and the tensor."""
+    from .tensors.scan import scan
+
+    try:
+        arr = tensors[name]
+        result = scan(
+            arr,
+            formats=formats,
+            options=options,
+            progress=not args.no_progress,
+            quantiles=False if args.quantiles == "none" else args.quantiles,
+        )
+    except BitprismError as exc:
+        where = f"{printable(os.fspath(args.file))}: tensor {name!r}: "
+        message = str(exc)
+        if message.startswith(printable(os.fspath(args.file))):
+            raise
+        raise BitprismError(where + message) from exc
+    return arr, result
 
 
 def _cmd_scan(args: argparse.Namespace) -> int:
@@ -296,33 +386,28 @@ def _cmd_scan(args: argparse.Namespace) -> int:
     formats = _resolve_formats(args.formats, allow_mx=True)
     wanted = _fail_conditions(args.fail_on)
     path = args.file
-    tensors = open_tensors(path)
+    tensors = open_tensors(path, max_ratio=args.max_ratio or None)
     names = list(tensors)
     if args.tensor is not None:
         if args.tensor not in tensors:
             raise BitprismError(
-                f"{os.fspath(path)}: no tensor named {args.tensor!r}; it holds: "
+                f"{printable(os.fspath(path))}: no tensor named {args.tensor!r}; it holds: "
                 f"{', '.join(repr(n) for n in names[:20]) or 'nothing'}"
             )
         names = [args.tensor]
-    from .tensors.scan import scan
-
     reports = []
     failed: set[str] = set()
+    specials = args.json or any(c in wanted for c in ("nan", "inf", "nonfinite"))
     for name in names:
-        arr = tensors[name]
-        result = scan(
-            arr,
-            formats=formats,
-            options=options,
-            progress=not args.no_progress,
-            quantiles=False if args.quantiles == "none" else args.quantiles,
-        )
-        # the full summary (exact decimal strings) only for --json: text needs the counts alone
-        summary = _scan_summary(result, formats) if args.json else _counts(result, wanted)
-        met = _conditions_met(summary, wanted)
+        arr, result = _scan_one(tensors, name, formats, options, args)
+        counts = _counts(result, arr if specials else None)
+        met = _conditions_met(counts, wanted)
         failed.update(met)
-        reports.append((name, arr, result, summary, met))
+        # the full summary (exact decimal strings) only for --json: text needs the counts alone
+        summary = _scan_summary(result, counts) if args.json else {}
+        reports.append((name, tuple(arr.shape), str(arr.dtype), result, summary, counts, met))
+        tensors.release(name)  # a decompressed member's temporary file goes with its array
+        del arr
     if args.json:
         payload = {
             "file": os.fspath(path),
@@ -332,28 +417,35 @@ def _cmd_scan(args: argparse.Namespace) -> int:
             "fail_on": wanted,
             "failed": sorted(failed),
             "tensors": [
-                {
-                    "name": name,
-                    "shape": [int(d) for d in arr.shape],
-                    "dtype": str(arr.dtype),
-                    "formats": summary,
-                    "failed": met,
-                }
-                for name, arr, _, summary, met in reports
+                {"name": name, "shape": list(shape), "dtype": dtype, "formats": summary,
+                 "failed": met}
+                for name, shape, dtype, _, summary, _, met in reports
             ],
+            "seed": options.seed,
         }
-        print(json.dumps(payload, ensure_ascii=False))
-    else:
-        for name, arr, result, _, met in reports:
-            shape = "x".join(str(d) for d in arr.shape) or "scalar"
-            print(f"== {name} ({shape}, {arr.dtype}) ==")
-            print(str(result))
-            if met:
-                print(f"fails: {', '.join(met)}")
-            print()
-        if wanted:
-            verdict = f"FAIL ({', '.join(sorted(failed))})" if failed else "pass"
-            print(f"{os.fspath(path)}: --fail-on {','.join(wanted)}: {verdict}")
+        # ASCII escapes keep the output valid whatever a name holds (a lone surrogate too)
+        print(json.dumps(payload, ensure_ascii=True))
+        return EXIT_FAILED_CHECK if failed else EXIT_OK
+    for name, shape, dtype, result, _, counts, met in reports:
+        shown = "x".join(str(d) for d in shape) or "scalar"
+        print(f"== {printable(name)} ({shown}, {dtype}) ==")
+        print(str(result))
+        made = [
+            f"{fmt} {n} {kind}"
+            for fmt, row in counts.items()
+            for kind, n in (("NaN", row["result_nan"]), ("Inf", row["result_inf"]))
+            if specials and n
+        ]
+        if made:
+            print(f"cast results holding NaN or Inf: {', '.join(made)}")
+        if met:
+            print(f"fails: {', '.join(met)}")
+        print()
+    if options.rounding == "stochastic":
+        print(f"stochastic rounding with seed {options.seed} (--seed {options.seed} repeats it)")
+    if wanted:
+        verdict = f"FAIL ({', '.join(sorted(failed))})" if failed else "pass"
+        print(f"{printable(os.fspath(path))}: --fail-on {','.join(wanted)}: {verdict}")
     return EXIT_FAILED_CHECK if failed else EXIT_OK
 
 
@@ -383,20 +475,40 @@ def _plain(value: Any) -> Any:
     return str(value)
 
 
-def _counts(result: Any, names: list[str]) -> dict[str, dict[str, Any]]:
-    """The counts ``names`` (``--fail-on`` conditions) of each format of a ``ScanResult``."""
-    return {row.name: {n: getattr(row, n) for n in names} for row in result.formats}
+def _counts(result: Any, data: Any) -> dict[str, dict[str, Any]]:
+    """Per format of a ``ScanResult``: the ``--fail-on`` counts, and the NaN and Inf of the cast
+    result (``result_nan``, ``result_inf``, None when not asked: ``data`` None)."""
+    from .tensors.cast_specials import cast_specials
+
+    out: dict[str, dict[str, Any]] = {}
+    for row in result.formats:
+        made = cast_specials(result, row, data) if data is not None else None
+        nan = None if made is None else made.nan
+        inf = None if made is None else made.inf
+        out[row.name] = {
+            "nan": max(row.nan, nan or 0),
+            "inf": max(row.inf, inf or 0),
+            "nonfinite": max(row.nan + row.inf, (nan or 0) + (inf or 0)),
+            "overflow": row.overflow,
+            "underflow": row.underflow,
+            "subnormal": row.subnormal or 0,
+            "result_nan": nan,
+            "result_inf": inf,
+        }
+    return out
 
 
-def _scan_summary(result: Any, formats: list[Any]) -> dict[str, dict[str, Any]]:
+def _scan_summary(result: Any, counts: dict[str, dict[str, Any]]) -> dict[str, dict[str, Any]]:
     """Per-format figures of a ``ScanResult`` as plain dicts (counts as ints, the rest as exact
-    strings); the keys include the ``--fail-on`` names: nan and inf (in the input), overflow and
-    underflow (what the cast does)."""
+    strings): every field of ``FormatScan`` (nan and inf count the input), then the NaN and Inf
+    of the cast result (``result_nan``, ``result_inf``)."""
     import dataclasses
 
     out: dict[str, dict[str, Any]] = {}
     for row in result.formats:
         fields = {f.name: getattr(row, f.name) for f in dataclasses.fields(row) if f.name != "format"}
+        fields["result_nan"] = counts[row.name]["result_nan"]
+        fields["result_inf"] = counts[row.name]["result_inf"]
         out[row.name] = _plain(fields)
     return out
 
@@ -439,8 +551,9 @@ def _cmd_formats(args: argparse.Namespace) -> int:
         }
         for m in MX_FORMATS.values()
     ]
+    aliases = [{"name": a.name, "format": a.format, "note": a.note} for a in format_aliases()]
     if args.json:
-        print(json.dumps({"formats": records, "block_formats": blocks}))
+        print(json.dumps({"formats": records, "block_formats": blocks, "aliases": aliases}))
         return EXIT_OK
     head = ["name", "layout", "bias", "specials", "max", "min normal", "min subnormal"]
     rows = []
@@ -467,14 +580,31 @@ def _cmd_formats(args: argparse.Namespace) -> int:
     for b in blocks:
         line = f"  {b['name']:<11} {b['block_size']} x {b['element']:<14}"
         print(f"{line} max element {b['max_element']}")
+    print()
+    _print_aliases(aliases)
     return EXIT_OK
+
+
+def _print_aliases(aliases: list[dict[str, Any]]) -> None:
+    """The aliases by format, then what the names that could mean another format mean."""
+    print("Aliases (case, spaces at the ends, and '-' against '_' do not matter)")
+    width = max(len(name) for name in FORMATS)
+    for name in FORMATS:
+        mine = [a["name"] + ("*" if a["note"] else "") for a in aliases if a["format"] == name]
+        if mine:
+            print(f"  {name:<{width}}  {', '.join(mine)}")
+    print("* could mean another format:")
+    for a in aliases:
+        if a["note"]:
+            print(f"  {a['name']} -> {a['format']}: {a['note']}")
 
 
 # ----- entry point ----------------------------------------------------------------------------
 
 
 def _one_line(message: str) -> str:
-    return " ".join(message.split())
+    """One line, with whatever a file name or a value brought in escaped (``printable``)."""
+    return printable(" ".join(message.split()))
 
 
 def main(argv: Sequence[str] | None = None) -> int:

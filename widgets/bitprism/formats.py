@@ -22,9 +22,11 @@ from .errors import BitprismError
 __all__ = [
     "FORMATS",
     "Format",
+    "FormatAlias",
     "FormatLike",
     "SPECIALS",
     "Specials",
+    "format_aliases",
     "format_key",
     "get_format",
 ]
@@ -417,45 +419,91 @@ _BUILTINS: tuple[Format, ...] = (
 
 FORMATS: Mapping[str, Format] = {f.name: f for f in _BUILTINS}
 
-# Short names in common use in papers, framework docs and code (common practice).
-_ALIASES: dict[str, str] = {
-    "fp64": "float64",
-    "f64": "float64",
-    "double": "float64",
-    "binary64": "float64",
-    "fp32": "float32",
-    "f32": "float32",
-    "single": "float32",
-    "binary32": "float32",
-    "float": "float32",
-    "tensorfloat32": "tf32",
-    "bf16": "bfloat16",
-    "fp16": "float16",
-    "f16": "float16",
-    "half": "float16",
-    "binary16": "float16",
-    "e5m2": "float8_e5m2",
-    "fp8_e5m2": "float8_e5m2",
-    "e4m3": "float8_e4m3fn",
-    "e4m3fn": "float8_e4m3fn",
-    "fp8_e4m3": "float8_e4m3fn",
-    "fp8": "float8_e4m3fn",
-    "e3m4": "float8_e3m4",
-    "e4m3fnuz": "float8_e4m3fnuz",
-    "e5m2fnuz": "float8_e5m2fnuz",
-    "e4m3b11fnuz": "float8_e4m3b11fnuz",
-    "e5m3fnu": "float8_e5m3fnu",
-    "e8m0": "float8_e8m0fnu",
-    "e8m0fnu": "float8_e8m0fnu",
-    "fp6": "float6_e2m3fn",
-    "fp6_e2m3": "float6_e2m3fn",
-    "e2m3": "float6_e2m3fn",
-    "fp6_e3m2": "float6_e3m2fn",
-    "e3m2": "float6_e3m2fn",
-    "fp4": "float4_e2m1fn",
-    "fp4_e2m1": "float4_e2m1fn",
-    "e2m1": "float4_e2m1fn",
-}
+@dataclass(frozen=True)
+class FormatAlias:
+    """A short name for a built-in format.
+
+    Attributes:
+        name: the alias as looked up (``format_key`` form: lower case, ``_`` for ``-``).
+        format: the canonical name of the format it resolves to.
+        note: for a name that could be read as another format, what it means and where the
+            other one is; None for a name with one reading.
+    """
+
+    name: str
+    format: str
+    note: str | None = None
+
+
+_OCP_E4M3 = (
+    "the OCP E4M3 without Inf (largest 448); the IEEE-style E4M3 with Inf (largest 240) is "
+    "float8_e4m3"
+)
+# Short names in common use in papers, framework docs and code (common practice), in display
+# order. What each resolves to is fixed: a script written against one version reads the same
+# format in the next.
+_ALIAS_TABLE: tuple[FormatAlias, ...] = (
+    FormatAlias("fp64", "float64"),
+    FormatAlias("f64", "float64"),
+    FormatAlias("double", "float64"),
+    FormatAlias("binary64", "float64"),
+    FormatAlias("fp32", "float32"),
+    FormatAlias("f32", "float32"),
+    FormatAlias("single", "float32"),
+    FormatAlias("binary32", "float32"),
+    FormatAlias(
+        "float",
+        "float32",
+        "the C float; Python's float is float64 (get_format(float) gives float64)",
+    ),
+    FormatAlias("tensorfloat32", "tf32"),
+    FormatAlias("bf16", "bfloat16"),
+    FormatAlias("fp16", "float16"),
+    FormatAlias("f16", "float16"),
+    FormatAlias("half", "float16"),
+    FormatAlias("binary16", "float16"),
+    FormatAlias("e5m2", "float8_e5m2"),
+    FormatAlias("fp8_e5m2", "float8_e5m2"),
+    FormatAlias("e4m3", "float8_e4m3fn", _OCP_E4M3),
+    FormatAlias("e4m3fn", "float8_e4m3fn"),
+    FormatAlias("fp8_e4m3", "float8_e4m3fn", _OCP_E4M3),
+    FormatAlias(
+        "fp8",
+        "float8_e4m3fn",
+        _OCP_E4M3 + "; the other 8-bit formats have names of their own (float8_e5m2, ...)",
+    ),
+    FormatAlias("e3m4", "float8_e3m4"),
+    FormatAlias("e4m3fnuz", "float8_e4m3fnuz"),
+    FormatAlias("e5m2fnuz", "float8_e5m2fnuz"),
+    FormatAlias("e4m3b11fnuz", "float8_e4m3b11fnuz"),
+    FormatAlias("e5m3fnu", "float8_e5m3fnu"),
+    FormatAlias("e8m0", "float8_e8m0fnu"),
+    FormatAlias("e8m0fnu", "float8_e8m0fnu"),
+    FormatAlias(
+        "fp6",
+        "float6_e2m3fn",
+        "the OCP MX FP6 E2M3 (largest 7.5); the other FP6, E3M2 (largest 28), is fp6_e3m2",
+    ),
+    FormatAlias("fp6_e2m3", "float6_e2m3fn"),
+    FormatAlias("e2m3", "float6_e2m3fn"),
+    FormatAlias("fp6_e3m2", "float6_e3m2fn"),
+    FormatAlias("e3m2", "float6_e3m2fn"),
+    FormatAlias("fp4", "float4_e2m1fn"),
+    FormatAlias("fp4_e2m1", "float4_e2m1fn"),
+    FormatAlias("e2m1", "float4_e2m1fn"),
+)
+_ALIASES: dict[str, str] = {a.name: a.format for a in _ALIAS_TABLE}
+
+
+def format_aliases(format: str | None = None) -> tuple[FormatAlias, ...]:
+    """Every alias of the built-in formats, in display order; only those of ``format`` (a
+    canonical name, alias, dtype or ``Format``) when given. An alias with a ``note`` could be
+    read as another format: the note says which it is."""
+    if format is None:
+        return _ALIAS_TABLE
+    name = get_format(format).name
+    return tuple(a for a in _ALIAS_TABLE if a.format == name)
+
 
 FormatLike = Union[str, Format, np.dtype, type]
 

@@ -194,7 +194,9 @@ def _chunk_codes(plan: _Plan, bits: np.ndarray, scratch: _Scratch, rng) -> np.nd
         x = a
     d = u(plan.d)
     if plan.d == 0:
-        np.copyto(c, x)
+        np.copyto(c, x)  # the source's own precision: nothing to round in the normal range
+        if mode == "stochastic":
+            words = _random_bits(rng, k, u)  # the subnormal range below may still round
     elif mode == "roundTiesToEven":
         np.right_shift(x, d, out=c)
         np.bitwise_and(c, u(1), out=c)
@@ -296,7 +298,10 @@ def _directed_low(
         np.copyto(spare, draw, casting="unsafe")  # exact: below 2^(t_src+1)
         np.add(b, np.less(spare, rem, out=m), out=b, casting="unsafe")
     elif mode == "roundTiesToAway":
-        step = np.equal(np.subtract(fa, r, out=r), unit * f(0.5), out=m)
+        # a tie: the remainder is half a step. Compared doubled, since half of float64's
+        # smallest subnormal step is not a float64 (0 == 2^-1075 rounded would match zeros)
+        rem = np.subtract(fa, r, out=r)
+        step = np.equal(np.multiply(rem, f(2.0), out=rem), unit, out=m)
         np.add(b, step, out=b, casting="unsafe")
     else:
         np.subtract(b, np.greater(r, fa, out=m), out=b, casting="unsafe")  # now rounded down

@@ -5,7 +5,8 @@ Rounding is monotone, so for one sign of the input every class of a cast into a 
 range of magnitudes: overflow is ``[overflow_from, Inf)``, underflow to zero ``(0,
 nonzero_from)``, a subnormal result ``[nonzero_from, normal_from)``. The ends are found once per
 (format, rounding, subnormal handling, sign) by a binary search over float64 bit patterns that
-rounds a few dozen scalars exactly (``scalar.encode_exact``), and are then shared by everything
+rounds a few dozen scalars exactly (``rounding.exceeds_largest`` for overflow, IEEE 754-2019
+§7.4; ``scalar.encode_exact`` for the rest), and are then shared by everything
 that classifies data without casting it: the scan's counts (and its counts-only kernel) and the
 tensor window's overflow and underflow marks. Overflow follows IEEE 754-2019 §7.4 (the value
 rounded with an unbounded exponent range exceeds the largest finite value); under stochastic
@@ -24,10 +25,10 @@ from typing import Callable
 
 import numpy as np
 
-from ..errors import BitprismError
 from ..formats import Format
 from .exact import as_exact
 from .options import CastOptions
+from .rounding import exceeds_largest
 from .scalar import decode_exact, encode_exact
 
 __all__ = ["Thresholds", "cast_thresholds", "pattern_at_least"]
@@ -66,17 +67,6 @@ def _first_true(pred: Callable[[float], bool]) -> float:
     return _f64(hi)
 
 
-def _wide(fmt: Format) -> Format | None:
-    """The format with one more exponent bit and the same bias and precision: rounding into it
-    is rounding with an unbounded exponent range above ``fmt``'s largest binade."""
-    if fmt.exponent_bits >= 11:
-        return None
-    try:
-        return Format(fmt.name + "+wide", fmt.exponent_bits + 1, fmt.significand_bits, fmt.bias)
-    except BitprismError:
-        return None
-
-
 def cast_thresholds(fmt: Format, options: CastOptions, negative: bool = False) -> Thresholds:
     """The class boundaries of a cast into ``fmt`` with ``options``, for inputs of one sign.
     They depend on the rounding direction and the subnormal handling only (cached)."""
@@ -88,19 +78,14 @@ def _thresholds(fmt: Format, rounding: str, subnormals: str, negative: bool) -> 
     sign = -1.0 if negative else 1.0
     top = float(fmt.max_finite)
     if rounding == "stochastic":
-        over = float(np.nextafter(top, math.inf))
+        with np.errstate(over="ignore"):  # float64's largest finite: the next is Inf
+            over = float(np.nextafter(top, math.inf))
     else:
-        wide = _wide(fmt)
-        if wide is None:
-            over = math.inf
-        else:
-            unbounded = CastOptions(rounding)  # type: ignore[arg-type]
 
-            def overflows(m: float) -> bool:
-                v = float(decode_exact(encode_exact(as_exact(sign * m), wide, unbounded), wide))
-                return abs(v) > top
+        def overflows(m: float) -> bool:
+            return bool(exceeds_largest(as_exact(sign * m), fmt, rounding))
 
-            over = _first_true(overflows)
+        over = _first_true(overflows)
 
     saturating = CastOptions(rounding, "saturate", subnormals)  # type: ignore[arg-type]
 

@@ -137,7 +137,7 @@ def _cut(line: str, width: int) -> str:
 def comparison_text(c: Comparison, width: int = 120) -> str:
     """A fixed-width table: one line per format, lines cut to ``width`` characters."""
     opts = c.options
-    head = f"input {c.text}  = {_input_text(c)}"
+    head = f"input {c.text} = {_input_text(c)}"
     setting = f"{opts.rounding}, overflow {opts.overflow}, subnormals {opts.subnormals}"
     if opts.rounding == "stochastic":
         setting += f", seed {opts.seed}"

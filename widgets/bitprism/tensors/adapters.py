@@ -22,6 +22,7 @@ import numpy as np
 
 from .. import ml_types
 from ..errors import BitprismError, UnsupportedInputError
+from .file_checks import shown_path
 from .files import open_tensor
 
 __all__ = ["as_array", "is_dask_array"]
@@ -161,7 +162,7 @@ def as_array(obj: Any, *, name: str | None = None) -> np.ndarray:
                 ".npy, .npz or .safetensors file (to inspect a typed number, use compare())"
             )
         arr = open_tensor(obj, name)
-        return _from_numpy(arr, f"{os.fspath(obj)}: tensor {name!r}" if name else os.fspath(obj))
+        return _from_numpy(arr, f"{shown_path(obj)}: tensor {name!r}" if name else shown_path(obj))
     if isinstance(obj, Mapping):
         return _from_mapping(obj, name)
     if name is not None:

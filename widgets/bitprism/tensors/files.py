@@ -2,14 +2,16 @@
 
 Every reader maps the file into memory (``numpy.memmap``) where the layout allows it, so opening
 a multi-gigabyte checkpoint reads only its header, and a later slice reads only the pages it
-touches. Compressed ``.npz`` members cannot be mapped; they are decompressed one tensor at a time,
-when that tensor is first asked for.
+touches. Compressed ``.npz`` members cannot be mapped; each is decompressed in chunks into a
+temporary file when it is first asked for, and that file is mapped (``npz_members``), with a cap
+on how far a member may expand.
 
 Files are untrusted input. Nothing here unpickles (``allow_pickle`` stays ``False`` and object
 arrays are refused before numpy sees them), nothing reads outside the file, and no allocation is
 sized from a length the file claims before that length is checked against the file's real size.
-Every problem becomes a :class:`~bitprism.errors.BitprismError` that names the file and what is
-wrong with it.
+Only regular files are opened (a FIFO would block); every shape is checked before numpy sees it
+(``file_checks``). Every problem becomes a :class:`~bitprism.errors.BitprismError` that names
+the file and what is wrong with it.
 
 numpy and ml_dtypes types
 -------------------------
@@ -24,32 +26,32 @@ simpler and cannot go stale.) Safetensors files carry their types and need no he
 from __future__ import annotations
 
 import difflib
-import functools
 import json
 import math
 import os
-import struct
 import sys
-import tokenize
-import zipfile
 from collections.abc import Iterator, Mapping
-from typing import Any, Callable, Union
+from typing import Any, Callable
 
 import numpy as np
 
 from .. import ml_types
 from ..errors import BitprismError, UnsupportedInputError
 from ..formats import get_format
+from .file_checks import PathLike, check_shape, read_npy_header, regular_file_size, shown_path
+from .file_checks import file_error as _fail
+from .file_checks import names_text as _names_text
+from .file_checks import shape_text as _shape_text
+from .npz_members import DEFAULT_MAX_RATIO, check_max_ratio, npz_loaders
 
-__all__ = ["TensorFile", "open_tensor", "open_tensors"]
-
-PathLike = Union[str, "os.PathLike[str]"]
+__all__ = ["DEFAULT_MAX_RATIO", "TensorFile", "open_tensor", "open_tensors"]
 
 # The reference reader refuses headers above 100 MB (MAX_HEADER_SIZE in the safetensors
 # project's safetensors/src/tensor.rs); we use the same cap, before reading a byte of it.
 _MAX_SAFETENSORS_HEADER = 100_000_000
-# numpy's own default cap on a .npy header (numpy.lib.format, max_header_size).
-_MAX_NPY_HEADER = 10_000
+# A header integer (a dimension or an offset) needs at most 20 digits (2**64); longer ones are
+# refused while parsing, before Python's int() meets its 4,300-digit limit (sys.int_info).
+_MAX_INT_DIGITS = 100
 _NPY_MAGIC = b"\x93NUMPY"
 _ZIP_MAGIC = b"PK\x03\x04"
 _SUFFIXES = (".npy", ".npz", ".safetensors")
@@ -92,26 +94,13 @@ _SAFETENSORS_REFUSED = {
 }
 
 
-def _fail(path: PathLike, problem: str) -> BitprismError:
-    return BitprismError(f"{os.fspath(path)}: {problem}")
-
-
-def _shape_text(shape: tuple[int, ...] | list[int]) -> str:
-    return "[" + ", ".join(str(d) for d in shape) + "]"
-
-
-def _names_text(names: list[str], limit: int = 20) -> str:
-    shown = ", ".join(repr(n) for n in names[:limit])
-    more = len(names) - limit
-    return shown + (f", ... and {more} more" if more > 0 else "")
-
-
 class TensorFile(Mapping[str, np.ndarray]):
     """The tensors of one file, in file order, read on first access (then kept).
 
     Behaves as a read-only ``dict`` of name -> ``numpy.ndarray``. Arrays are memory-mapped
     (``numpy.memmap``, read-only) wherever the file's layout allows; compressed ``.npz`` members
-    are decompressed when first asked for. A ``.npy`` file holds one tensor, named after the
+    are decompressed into a temporary file when first asked for, and mapped from there.
+    ``release()`` drops the kept arrays. A ``.npy`` file holds one tensor, named after the
     file's stem.
 
     Attributes:
@@ -152,6 +141,14 @@ class TensorFile(Mapping[str, np.ndarray]):
     def __contains__(self, name: object) -> bool:
         return name in self._loaders
 
+    def release(self, name: str | None = None) -> None:
+        """Forget the array read for ``name`` (every array when None): the next access reads
+        it again. A decompressed member's temporary file is deleted once no array uses it."""
+        if name is None:
+            self._cache.clear()
+        else:
+            self._cache.pop(name, None)
+
     def __repr__(self) -> str:
         return (
             f"TensorFile({os.fspath(self.path)!r}, {self.kind}, "
@@ -159,7 +156,9 @@ class TensorFile(Mapping[str, np.ndarray]):
         )
 
 
-def open_tensors(path: PathLike, *, raw_as: Any = None) -> TensorFile:
+def open_tensors(
+    path: PathLike, *, raw_as: Any = None, max_ratio: float | None = DEFAULT_MAX_RATIO
+) -> TensorFile:
     """Open a ``.npy``, ``.npz`` or ``.safetensors`` file as a mapping of name -> array.
 
     Args:
@@ -168,6 +167,9 @@ def open_tensors(path: PathLike, *, raw_as: Any = None) -> TensorFile:
         raw_as: a format name, ``Format`` or dtype that says what raw void items are
             (numpy writes ml_dtypes arrays such as bfloat16 that way); only void-typed tensors
             are affected, and their item size must match.
+        max_ratio: a compressed ``.npz`` member that declares more than this many times its
+            compressed size is refused (default 1100: above deflate's limit of about 1032, so
+            every file ``numpy.savez_compressed`` writes passes); None lifts the cap.
 
     Raises:
         BitprismError: the file is missing, unreadable, malformed or of another kind; the
@@ -177,6 +179,7 @@ def open_tensors(path: PathLike, *, raw_as: Any = None) -> TensorFile:
         raise UnsupportedInputError(
             f"path must be a str or os.PathLike, got {type(path).__name__} {path!r}"
         )
+    ratio = check_max_ratio(max_ratio)
     if raw_as is not None:
         _raw_dtype(raw_as)  # fail early on a bad raw_as
     kind = _file_kind(path)
@@ -185,18 +188,24 @@ def open_tensors(path: PathLike, *, raw_as: Any = None) -> TensorFile:
         _npy_layout(path)  # validate now, so open_tensors reports a bad file at once
         return TensorFile(path, kind, {stem: lambda: _load_npy(path)}, raw_as=raw_as)
     if kind == "npz":
-        return TensorFile(path, kind, _npz_loaders(path), raw_as=raw_as)
+        return TensorFile(path, kind, npz_loaders(path, ratio), raw_as=raw_as)
     loaders, metadata = _safetensors_loaders(path)
     return TensorFile(path, kind, loaders, metadata, raw_as=raw_as)
 
 
-def open_tensor(path: PathLike, name: str | None = None, *, raw_as: Any = None) -> np.ndarray:
+def open_tensor(
+    path: PathLike,
+    name: str | None = None,
+    *,
+    raw_as: Any = None,
+    max_ratio: float | None = DEFAULT_MAX_RATIO,
+) -> np.ndarray:
     """One tensor from a file: the only one, or the one called ``name``.
 
     A file holding several tensors needs ``name``; the error lists the names it holds.
-    See :func:`open_tensors` for ``raw_as``.
+    See :func:`open_tensors` for ``raw_as`` and ``max_ratio``.
     """
-    tensors = open_tensors(path, raw_as=raw_as)
+    tensors = open_tensors(path, raw_as=raw_as, max_ratio=max_ratio)
     names = list(tensors)
     if name is None:
         if len(names) == 1:
@@ -220,11 +229,12 @@ def open_tensor(path: PathLike, name: str | None = None, *, raw_as: Any = None) 
 
 
 def _file_kind(path: PathLike) -> str:
+    """"npy", "npz" or "safetensors", from the suffix or else from the first bytes. Only a
+    regular file is opened (``regular_file_size``): reading a FIFO would block."""
     text = os.fspath(path)
     suffix = os.path.splitext(text)[1].lower()
+    regular_file_size(path)
     if suffix in _SUFFIXES:
-        if not os.path.isfile(text):
-            raise _fail(path, "no such file" if not os.path.exists(text) else "not a file")
         return suffix[1:]
     try:
         with open(text, "rb") as f:
@@ -240,13 +250,6 @@ def _file_kind(path: PathLike) -> str:
         f"unknown file kind {suffix or '(no suffix)'!r}; bitprism reads "
         f"{', '.join(_SUFFIXES)} files",
     )
-
-
-def _file_size(path: PathLike) -> int:
-    try:
-        return os.stat(os.fspath(path)).st_size
-    except OSError as exc:
-        raise _fail(path, f"cannot be read ({exc.strerror or exc})") from exc
 
 
 def _raw_dtype(raw_as: Any) -> np.dtype:
@@ -292,37 +295,6 @@ def _apply_raw_as(arr: np.ndarray, raw_as: Any, path: PathLike, name: str) -> np
     return arr.view(target)
 
 
-def _npy_header(f: Any, where: str, path: PathLike) -> tuple[tuple[int, ...], bool, np.dtype]:
-    """Read a .npy header (magic, version, dict) from ``f`` with numpy's safe literal parser."""
-    try:
-        version = np.lib.format.read_magic(f)
-        if version == (1, 0):
-            shape, fortran, dtype = np.lib.format.read_array_header_1_0(
-                f, max_header_size=_MAX_NPY_HEADER
-            )
-        elif version == (2, 0):
-            shape, fortran, dtype = np.lib.format.read_array_header_2_0(
-                f, max_header_size=_MAX_NPY_HEADER
-            )
-        else:
-            raise ValueError(f"unsupported .npy format version {version[0]}.{version[1]}")
-    except (ValueError, OSError, EOFError, SyntaxError, zipfile.BadZipFile) as exc:
-        raise _fail(path, f"{where}is not a readable .npy array ({exc})") from exc
-    except tokenize.TokenError as exc:  # numpy tokenizes the header dictionary's text
-        raise _fail(
-            path, f"{where}is not a readable .npy array (its header dictionary is cut short "
-            "or has unbalanced brackets or quotes)"
-        ) from exc
-    except Exception as exc:  # anything else numpy's header reader raises on damaged bytes
-        raise _fail(path, f"{where}is not a readable .npy array ({type(exc).__name__}: {exc})") from exc
-    if dtype.hasobject:
-        raise UnsupportedInputError(
-            f"{os.fspath(path)}: {where}holds Python objects (dtype {dtype.str!r}); bitprism "
-            "never unpickles file contents (unpickling can run code). Save numbers instead."
-        )
-    return tuple(shape), bool(fortran), dtype
-
-
 def _nbytes(shape: tuple[int, ...] | list[int], itemsize: int) -> int:
     return math.prod(shape) * itemsize
 
@@ -331,10 +303,10 @@ def _nbytes(shape: tuple[int, ...] | list[int], itemsize: int) -> int:
 
 
 def _npy_layout(path: PathLike) -> tuple[tuple[int, ...], bool, np.dtype, int]:
-    size = _file_size(path)
+    size = regular_file_size(path)
     try:
         with open(os.fspath(path), "rb") as f:
-            shape, fortran, dtype = _npy_header(f, "", path)
+            shape, fortran, dtype = read_npy_header(f, "", path)
             start = f.tell()
     except OSError as exc:
         raise _fail(path, f"cannot be read ({exc.strerror or exc})") from exc
@@ -356,108 +328,6 @@ def _load_npy(path: PathLike) -> np.ndarray:
         raise _fail(path, f"cannot be memory-mapped ({exc})") from exc
 
 
-# ----- .npz --------------------------------------------------------------------------------
-
-
-def _npz_loaders(path: PathLike) -> dict[str, Callable[[], np.ndarray]]:
-    try:
-        with zipfile.ZipFile(os.fspath(path)) as zf:
-            infos = zf.infolist()
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError) as exc:
-        raise _fail(path, f"is not a readable .npz (zip) archive ({exc})") from exc
-    except NotImplementedError as exc:  # zipfile's word for a version or method it lacks
-        raise _fail(path, f"is a .npz (zip) archive this reader cannot open ({exc})") from exc
-    except Exception as exc:  # anything else zipfile raises on a damaged directory
-        raise _fail(
-            path, f"is not a readable .npz (zip) archive ({type(exc).__name__}: {exc})"
-        ) from exc
-    loaders: dict[str, Callable[[], np.ndarray]] = {}
-    for info in infos:
-        if info.is_dir():
-            continue
-        # numpy.savez names members '<key>.npy'; np.load shows them without the suffix.
-        key = info.filename[:-4] if info.filename.endswith(".npy") else info.filename
-        if key in loaders:
-            raise _fail(path, f"holds two members named {key!r}")
-        loaders[key] = functools.partial(_load_npz_member, path, info)
-    return loaders
-
-
-def _load_npz_member(path: PathLike, info: zipfile.ZipInfo) -> np.ndarray:
-    where = f"member {info.filename!r} "
-    if info.flag_bits & 0x1:
-        raise _fail(path, f"{where}is encrypted")
-    if info.compress_type == zipfile.ZIP_STORED:
-        mapped = _map_stored_member(path, info, where)
-        if mapped is not None:
-            return mapped
-    try:
-        with zipfile.ZipFile(os.fspath(path)) as zf, zf.open(info) as stream:
-            shape, _fortran, dtype = _npy_header(stream, where, path)
-            header_len = stream.tell()
-            need = _nbytes(shape, dtype.itemsize)
-            # Check the claimed shape against the member's own size before numpy allocates
-            # for it, so a forged header cannot ask for more memory than the member holds.
-            if header_len + need != info.file_size:
-                raise _fail(
-                    path,
-                    f"{where}has shape {_shape_text(shape)} of {dtype} ({need} bytes) but "
-                    f"{info.file_size - header_len} bytes of data",
-                )
-        with zipfile.ZipFile(os.fspath(path)) as zf, zf.open(info) as stream:
-            return np.lib.format.read_array(
-                stream, allow_pickle=False, max_header_size=_MAX_NPY_HEADER
-            )
-    except BitprismError:
-        raise
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError, RuntimeError) as exc:
-        raise _fail(path, f"{where}cannot be read ({exc})") from exc
-    except Exception as exc:  # zlib.error and friends from a damaged stream
-        raise _fail(path, f"{where}cannot be read ({type(exc).__name__}: {exc})") from exc
-
-
-def _map_stored_member(path: PathLike, info: zipfile.ZipInfo, where: str) -> np.ndarray | None:
-    """Memory-map an uncompressed member in place; None when its layout is not plain enough."""
-    size = _file_size(path)
-    try:
-        with open(os.fspath(path), "rb") as f:
-            # Local file header (APPNOTE.TXT 4.3.7): 30 fixed bytes, then name and extra field,
-            # whose lengths may differ from the central directory's copy, so read them here.
-            f.seek(info.header_offset)
-            local = f.read(30)
-            if len(local) != 30 or local[:4] != _ZIP_MAGIC:
-                return None
-            name_len, extra_len = struct.unpack("<HH", local[26:30])
-            start = info.header_offset + 30 + name_len + extra_len
-            if start + info.file_size > size:
-                raise _fail(path, f"{where}runs past the end of the file")
-            f.seek(start)
-            shape, fortran, dtype = _npy_header(f, where, path)
-            data_start = f.tell()
-    except OSError as exc:
-        raise _fail(path, f"{where}cannot be read ({exc.strerror or exc})") from exc
-    need = _nbytes(shape, dtype.itemsize)
-    if data_start + need != start + info.file_size:
-        raise _fail(
-            path,
-            f"{where}has shape {_shape_text(shape)} of {dtype} ({need} bytes) but "
-            f"{start + info.file_size - data_start} bytes of data",
-        )
-    if need == 0:
-        return np.zeros(shape, dtype=dtype)
-    try:
-        return np.memmap(
-            os.fspath(path),
-            dtype=dtype,
-            mode="r",
-            offset=data_start,
-            shape=shape,
-            order="F" if fortran else "C",
-        )
-    except (ValueError, OSError):
-        return None  # fall back to reading the member through zipfile
-
-
 # ----- .safetensors -------------------------------------------------------------------------
 
 
@@ -474,13 +344,25 @@ class _DuplicateKey(ValueError):
     pass
 
 
+class _HugeInteger(ValueError):
+    pass
+
+
+def _header_int(text: str) -> int:
+    """json's ``parse_int`` hook: refuse an integer longer than ``_MAX_INT_DIGITS`` before
+    ``int()`` converts it (a 4,301-digit one would raise a bare ValueError there)."""
+    if len(text) > _MAX_INT_DIGITS:
+        raise _HugeInteger(len(text.lstrip("-")))
+    return int(text)
+
+
 def _is_count(value: Any) -> bool:
     return isinstance(value, int) and not isinstance(value, bool) and value >= 0
 
 
 def _safetensors_header(path: PathLike) -> tuple[dict[str, Any], int, int]:
     """Return (parsed header, start of the data buffer, length of the data buffer)."""
-    size = _file_size(path)
+    size = regular_file_size(path)
     try:
         with open(os.fspath(path), "rb") as f:
             head = f.read(8)
@@ -512,9 +394,15 @@ def _safetensors_header(path: PathLike) -> tuple[dict[str, Any], int, int]:
     except UnicodeDecodeError as exc:
         raise _fail(path, f"header is not valid UTF-8 (byte {exc.start} of the header)") from exc
     try:
-        header = json.loads(text, object_pairs_hook=_reject_duplicate_keys)
+        header = json.loads(text, object_pairs_hook=_reject_duplicate_keys, parse_int=_header_int)
     except _DuplicateKey as exc:
         raise _fail(path, f"header names {exc.args[0]!r} twice") from exc
+    except _HugeInteger as exc:
+        raise _fail(
+            path,
+            f"header holds an integer of {exc.args[0]} digits; no shape or offset needs more "
+            f"than 20 (integers of more than {_MAX_INT_DIGITS} characters are refused)",
+        ) from exc
     except json.JSONDecodeError as exc:
         raise _fail(
             path, f"header is not valid JSON ({exc.msg} at character {exc.pos + 1})"
@@ -548,7 +436,7 @@ def _safetensors_loaders(
             raise _fail(path, f"{what} has dtype {code!r}, not a string")
         if code in _SAFETENSORS_REFUSED:
             raise UnsupportedInputError(
-                f"{os.fspath(path)}: {what} has dtype {code!r}, which "
+                f"{shown_path(path)}: {what} has dtype {code!r}, which "
                 f"{_SAFETENSORS_REFUSED[code]}; bitprism cannot read it without guessing"
             )
         if code not in _SAFETENSORS_DTYPES:
@@ -583,7 +471,9 @@ def _safetensors_loaders(
                 f"{what} has data_offsets {offsets!r} ({end - begin} bytes) but shape "
                 f"{_shape_text(shape)} of {code} needs {need} bytes",
             )
-        entries.append((begin, position, name, dtype, tuple(shape)))
+        # the sizes agree, but a zero dimension hides the others from that check
+        checked = check_shape(path, f"{what} ", shape, dtype.itemsize)
+        entries.append((begin, position, name, dtype, checked))
     # File order is data order; tensors at the same offset keep header order. Overlapping
     # regions are allowed: each tensor is an independent view.
     entries.sort(key=lambda e: (e[0], e[1]))
