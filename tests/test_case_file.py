@@ -366,3 +366,100 @@ def test_huge_integer_is_refused_with_a_message(tmp_path: Path) -> None:
     path.write_text('{"bitprism_case": ' + "9" * 5000 + "}", encoding="utf-8")
     with pytest.raises(BitprismError, match=r"huge\.json: case: not readable as a case"):
         open_case(path)
+
+
+# ----- issue 16 item 11: a tensor case's every field is checked; the widget never writes a file
+# ----- it cannot read back --------------------------------------------------------------------
+@pytest.fixture()
+def tensor_case(tmp_path: Path) -> dict[str, Any]:
+    import numpy as np
+
+    from bitprism.ui.tensor_prism import TensorPrism
+
+    a = np.arange(3 * 40 * 50, dtype=np.float32).reshape(3, 40, 50) / 7  # invented values
+    tp = TensorPrism(a, formats=["bfloat16", E3M3], rows=4, cols=5, format_a="e3m3")
+    tp.goto("1, 10, 20")
+    path = tmp_path / "tensor.json"
+    tp.save_case(path)
+    case = json.loads(path.read_text(encoding="utf-8"))
+    assert case["state"]["axes"] == [1, 2] and case["state"]["shape"] == [3, 40, 50]
+    return case
+
+
+TENSOR_BAD = [
+    ("state.axes", True, r"state\.axes: expected a list, got true"),
+    ("state.axes", [0], r"state\.axes: \[row axis, column axis\] expected, got 1 entries"),
+    ("state.axes", {"a": 1}, r"state\.axes: expected a list, got an object"),
+    ("state.axes", [2**64, 1], r"state\.axes\[0\]: must be in 0\.\.2"),
+    ("state.axes", [1, 1], r"state\.axes: row and column axes must differ"),
+    ("state.axes", [None, 2], r"state\.axes\[0\]: a 3-D tensor needs a row axis"),
+    ("state.axes", ["1", 2], r"state\.axes\[0\]: expected an integer"),
+    ("state.shape", [3, 0, 50], r"state\.shape\[1\]: must be in 1\.\."),
+    ("state.shape", "3x40x50", r"state\.shape: expected a list"),
+    ("state.shape", [], r"state\.shape: a tensor has at least one axis"),
+    ("state.shape", [3, 40], r"state\.axes\[1\]: must be in 0\.\.1"),
+    ("state.fixed", [1, 0], r"state\.fixed: one index per axis of \[3, 40, 50\] expected"),
+    ("state.fixed", [3, 0, 0], r"state\.fixed\[0\]: must be in 0\.\.2, got 3"),
+    ("state.fixed", [1.0, 0, 0], r"state\.fixed\[0\]: expected an integer"),
+    ("state.window", None, r"state\.window: expected an object"),
+    ("state.window.rows", 5, r"state\.window\.rows: 5 differs from state\.data\.rows \(4\)"),
+    ("state.window.col", 48, r"state\.window\.col: 48 \+ 5 cells pass the end of axis 2"),
+    ("state.window.row", -1, r"state\.window\.row: must be in 0\.\."),
+    ("state.window.depth", 1, r"state\.window\.depth: unknown field"),
+    ("state.origin", [1, 8, 0], r"state\.origin: \[1, 8, 0\] is not where state\.fixed and"),
+    ("state.origin", [1, 8, 99], r"state\.origin\[2\]: must be in 0\.\.49"),
+    ("state.selected", [1, 10], r"state\.selected: one index per axis of \[3, 40, 50\]"),
+    ("state.selected", [1, 10, -2], r"state\.selected\[2\]: must be in 0\.\.49"),
+    ("state.formats.1", "bfloat16", r"state\.formats\[1\]: format 'bfloat16' is listed twice"),
+    ("state.format_a", "float16", r"state\.format_a: must be one of 'bfloat16', 'e3m3'"),
+    ("state.options.seed", 2**63, r"state\.options\.seed: must be in 0\.\.9223372036854775807"),
+    ("state.view", "heat", r"state\.view: must be one of"),
+    ("state.data.bits.0", "0x3f80", r"state\.data\.bits\[0\]: expected 8 lower-case hex"),
+    ("note", "\ud800", r"note: text holds '\\ud800' at position 0, a lone surrogate"),
+]
+
+
+@pytest.mark.parametrize(("field", "value", "message"), TENSOR_BAD,
+                         ids=[f"{b[0]}={b[1]!r}"[:40] for b in TENSOR_BAD])
+def test_bad_tensor_field_is_named(
+    tmp_path: Path, tensor_case: dict[str, Any], field: str, value: Any, message: str
+) -> None:
+    """Issue 16 item 11 (reproducers: state.axes true, [0], {"a":1} and [2**64, 1] raised
+    TypeError/IndexError/KeyError; shape, fixed and window were taken unchecked; duplicate
+    formats were not reported): every field is checked, the message names it."""
+    path = _write(tmp_path, _edit(tensor_case, field, value), "bad.json")
+    with pytest.raises(BitprismError, match=r"^bad\.json: " + message):
+        open_case(path)
+
+
+def test_tensor_case_selection_maps_into_the_saved_window(
+    tmp_path: Path, tensor_case: dict[str, Any]
+) -> None:
+    back = open_case(_write(tmp_path, tensor_case))
+    assert back.selected == (2, 2) and back._origin == (1, 8, 18)  # (10 - 8, 20 - 18)
+    assert back.format_a == "e3m3" and back.format_objects[1] == E3M3
+    elsewhere = _edit(tensor_case, "state.selected", [2, 10, 20])  # another slice of axis 0
+    assert open_case(_write(tmp_path, elsewhere)).selected == ()
+
+
+def test_saving_refuses_text_utf8_cannot_encode(tmp_path: Path) -> None:
+    """A lone surrogate cannot be written as UTF-8: refused when saving, never half-written."""
+    with pytest.raises(BitprismError, match=r"note: text holds '\\ud800'"):
+        Prism("1").save_case(tmp_path / "c.json", note="\ud800")
+    assert not (tmp_path / "c.json").exists()
+    with pytest.raises(BitprismError, match=r"formats\[0\]\.name: text holds"):
+        Prism("1", formats=[Format("e3m3\udfff", 3, 3, specials="fn")])
+
+
+def test_prism_keeps_only_values_a_case_reads_back(tmp_path: Path) -> None:
+    """A number whose exact text the parser cannot read back (a case stores the text) is
+    refused when set, not when the case is reopened."""
+    from fractions import Fraction
+
+    p = Prism("1", formats=["float16"])
+    with pytest.raises(BitprismError, match="exact text has .* characters and does not read"):
+        p.value = Fraction(1, 3**2000)
+    assert p.value == "1"
+    p.value = Fraction(1, 3**100)
+    q = open_case(p.save_case(tmp_path / "c.json"))
+    assert Fraction(q.value) == Fraction(1, 3**100)

@@ -152,3 +152,154 @@ def test_one_parse_per_enter(monkeypatch: pytest.MonkeyPatch) -> None:
     assert p.comparison.row("float16").overflowed
     p.rounding = "roundTowardZero"  # a new rounding: the same value, not parsed again
     assert len(calls) == 1 and p.comparison.row("float16").code == 0x7BFF  # saturates to max
+
+
+# ----- issue 16: bad input gets a BitprismError, a view that cannot be built is not committed --
+BAD_CONSTRUCTOR_ARGUMENTS = [
+    ({"value": "abc"}, r"value 'abc' is not a number"),
+    ({"value": None}, r"expected a real number"),
+    ({"value": [1]}, r"expected a real number"),
+    ({"formats": ["fp17"]}, r"unknown format 'fp17'"),
+    ({"formats": []}, r"needs at least one format"),
+    ({"formats": "float16"}, r"formats must be a list"),
+    ({"formats": 16}, r"formats must be a list"),
+    ({"formats": [Format("float16", 5, 2)]}, r"'float16' is a built-in format"),
+    ({"formats": [Format("e3m3", 3, 3, specials="fn"), Format("e3m3", 3, 2, specials="fn")]},
+     r"two different formats are named 'e3m3'"),
+    ({"rounding": "roundHalfUp"}, r"rounding must be one of"),
+    ({"rounding": 3}, r"expected a unicode string"),
+    ({"seed": -1}, r"seed must be in 0\.\.9223372036854775807"),
+    ({"seed": 2**63}, r"seed must be in 0\.\.9223372036854775807"),
+    ({"seed": True}, r"seed must be None or an integer"),
+    ({"aligned": "yes"}, r"expected a boolean"),
+    ({"via": "fp17"}, r"unknown format 'fp17'"),
+    ({"colour": "red"}, r"Prism has no option 'colour'"),
+    ({"layout": 5}, r"expected a Layout"),
+]
+
+
+@pytest.mark.parametrize(("kwargs", "message"), BAD_CONSTRUCTOR_ARGUMENTS,
+                         ids=[repr(k)[:40] for k, _ in BAD_CONSTRUCTOR_ARGUMENTS])
+def test_constructor_raises_bitprism_error(kwargs: dict, message: str) -> None:
+    """Issue 16 item 15 (reproducer ``bp.Prism(value="abc")``): what the example notebooks
+    catch with ``except bp.BitprismError`` is what the constructor raises."""
+    from bitprism.errors import BitprismError
+
+    with pytest.raises(BitprismError, match=message):
+        Prism(**kwargs)
+
+
+def test_setters_from_code_raise_bitprism_error_and_keep_the_view() -> None:
+    """Issue 16 item 15: a bad value set from code raises a BitprismError (also a TraitError,
+    so traitlets rolls back a batch holding it); nothing of it stays."""
+    from bitprism.errors import BitprismError
+    from bitprism.ui.refusal import WidgetValueError
+
+    assert issubclass(WidgetValueError, BitprismError) and issubclass(WidgetValueError, TraitError)
+    p = Prism("0.1", formats=FMTS)
+    kept = p.comparison
+    for name, bad in [("value", "abc"), ("value", None), ("formats", ["fp17"]),
+                      ("rounding", "sideways"), ("seed", -1), ("seed", 1.5), ("via", "x"),
+                      ("source_format", "float64x"), ("expression", "1 +"),
+                      ("aligned", None), ("formats", [Format("x" * 65, 3, 3)])]:
+        before = getattr(p, name)
+        with pytest.raises(BitprismError):
+            setattr(p, name, bad)
+        assert getattr(p, name) == before and p.comparison is kept, name
+    with pytest.raises(BitprismError), p.hold_trait_notifications():
+        p.rounding = "roundTowardZero"
+        p.overflow = "wrap"  # refused when the batch ends: the whole batch is rolled back
+    assert p.rounding == "roundTiesToEven" and p.comparison is kept
+
+
+def test_view_that_cannot_be_built_keeps_last_view_and_value(
+    monkeypatch: pytest.MonkeyPatch, tmp_path
+) -> None:
+    """Issue 16 item 7 (reproducer: ``Prism(value="1e400", formats=["float4_e2m1fn"])`` raised
+    OverflowError while rendering, after the value was already set): a value is committed only
+    when its whole view could be built; otherwise the last good view and its value stay, the
+    message says why, and what the widget accepted saves, exports and reopens."""
+    import bitprism.ui.prism as prism_module
+    from bitprism.errors import BitprismError
+    from bitprism.ui.case_file import open_case
+
+    real = prism_module.band_html
+
+    def fails_for_1e400(c, row, tiles=True):  # a renderer failing as item 7's did
+        if c.text == "1e400":
+            raise OverflowError("integer division result too large for a float")
+        return real(c, row, tiles=tiles)
+
+    monkeypatch.setattr(prism_module, "band_html", fails_for_1e400)
+    p = Prism("1", formats=["float32", "float4_e2m1fn"])
+    kept = p.comparison
+    with pytest.raises(BitprismError, match="could not be built"):
+        p.value = "1e400"
+    assert p.value == "1" and p.comparison is kept and "OverflowError" in p.message
+    assert p.value_input.value == "1"
+    p.value_input.value = "1e400"  # typed: the message says why, nothing is raised
+    assert p.value == "1" and p.comparison is kept and "OverflowError" in p.message
+    with pytest.raises(BitprismError, match="could not be built"):
+        Prism("1e400", formats=["float4_e2m1fn"])
+    for path in (p.save_case(tmp_path / "case.json"), p.export_html(tmp_path / "case.html")):
+        q = open_case(path)
+        assert q.value == "1" and [r.code for r in q.comparison.rows] == [r.code for r in kept.rows]
+
+
+@pytest.mark.parametrize(("value", "fmt", "beyond"), [
+    ("1e400", "float4_e2m1fn", np.finfo(np.float64).max),
+    ("1e-400", "float8_e8m0fnu", np.finfo(np.float64).smallest_subnormal),
+], ids=["1e400-float4_e2m1fn", "1e-400-float8_e8m0fnu"])
+def test_errors_beyond_float64_range_show_save_and_export(tmp_path, value, fmt, beyond) -> None:
+    """Issue 16 item 7: values whose errors lie beyond float64's range are shown, saved,
+    exported and reopened. The code is ml_dtypes' cast of the float64 nearest the value on the
+    same side of the format's range (from library: ml_dtypes, computed here)."""
+    import ml_dtypes
+
+    from bitprism.ui.case_file import open_case
+
+    p = Prism(value, formats=[fmt])
+    assert p.message == "" and p.value == value
+    with np.errstate(over="ignore", under="ignore"):
+        want = int(np.array([beyond]).astype(getattr(ml_dtypes, fmt)).view(np.uint8)[0])
+    assert p.comparison.row(fmt).code == want
+    assert str(p.comparison) and p.to_html()
+    for path in (p.save_case(tmp_path / "case.json"), p.export_html(tmp_path / "case.html")):
+        q = open_case(path)
+        assert q.value == value and q.comparison.row(fmt).code == want and q.message == ""
+
+
+def test_custom_format_band_takes_typed_bits() -> None:
+    """Issue 16 item 12: a format of one's own works where a built-in one does, here the bits
+    box of its band (the widget looked formats up by name: "unknown format 'e3m3'")."""
+    custom = Format("e3m3", 3, 3, specials="finite")
+    p = Prism("1", formats=["float16", custom])
+    p.bits_format.value = "e3m3"
+    p.bits_input.value = "0x1c"  # 0 011 100
+    assert p.message == "" and p.source_format == "e3m3" and p.source_code == 0x1C
+    # exponent field 0b011, significand 1.100b: (1 + 4/8) * 2**(3 - bias)
+    assert p.comparison.row(custom).stored.value == Fraction(8 + 0b100, 8) * Fraction(2) ** (
+        0b011 - custom.bias)
+    p.set_source("e3m3", 0x1D)
+    assert p.comparison.row(custom).code == 0x1D
+    _band(p, "e3m3").bits[-1].click()
+    assert p.comparison.row(custom).code == 0x1C and p.message == ""
+
+
+def test_seed_box_and_trait_refuse_what_a_case_cannot_hold() -> None:
+    """Issue 16 item 11: seeds outside 0 .. 2**63 - 1 (-1 from the seed box, 2**63) were taken
+    and saved, and open_case then refused the widget's own file (case seeds are JSON integers
+    within int64)."""
+    from bitprism.errors import BitprismError
+
+    p = Prism("0.1", formats=["bfloat16"], rounding="stochastic", seed=7)
+    for typed in (-1, 2**63):
+        p.seed_input.value = typed
+        assert p.seed == 7 and p.seed_input.value == 7 and "seed must be in 0.." in p.message
+    for bad in (-1, 2**63, True, 2.5, "7"):
+        with pytest.raises(BitprismError):
+            p.seed = bad
+        assert p.seed == 7
+    p.seed = 2**63 - 1
+    p.seed = np.int64(5)  # numpy integers are integers
+    assert p.seed == 5 and type(p.seed) is int and p.message == ""

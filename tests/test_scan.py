@@ -739,3 +739,14 @@ def test_memmap_scan_keeps_the_resident_set_small(tmp_path, quantiles) -> None:
                          check=True, timeout=300)
     grew_mib = int(out.stdout.split()[-1])
     assert grew_mib < 64, grew_mib
+
+
+@pytest.mark.parametrize("quantiles", ["exact", "histogram", False])
+def test_signaling_nans_are_scanned_without_warnings(quantiles) -> None:
+    """float16 signaling NaNs (0x7d01, 0xfc01: quiet bit clear, IEEE 754-2019 §6.2.1) widen to
+    the carrier quietly (numpy warns "invalid value" on such casts; pytest turns warnings into
+    errors here) and count as NaN."""
+    x = np.array([0x7D01, 0x3C00, 0xFC01] * 30000, np.uint16).view(np.float16)
+    for kw in ({}, {"scale": 2.0}):
+        r = scan(x, ["float16", "float8_e4m3fn"], progress=False, quantiles=quantiles, **kw)
+        assert r.histogram.nan == 60000

@@ -6,6 +6,8 @@ the formats it has); planted NaNs sit at known indices."""
 from __future__ import annotations
 
 import json
+import subprocess
+import sys
 from fractions import Fraction
 
 import ml_dtypes
@@ -13,6 +15,7 @@ import numpy as np
 import pytest
 
 from bitprism.errors import BitprismError
+from bitprism.formats import get_format
 from bitprism.numerics.parse import parse
 from bitprism.tensors.scan import scan
 from bitprism.ui.tensor_prism import TensorPrism
@@ -172,26 +175,37 @@ def test_pan_buttons_and_offsets() -> None:
 
 
 def test_bad_input_keeps_last_view() -> None:
+    """Typed text shows a message; the same values set from code raise BitprismError (issue
+    16, item 15) and show the same message; either way the last good view and traits stay."""
     tp = TensorPrism(_tensor(), formats=FMTS)
     kept = tp.window
     tp.goto("99, 1")
     assert "out of range for axis 0 with size 40" in tp.message and tp.window is kept
     tp.goto("1, 2x")
     assert "column" in tp.message
-    tp.data = np.zeros(3, np.complex64)
-    assert "complex" in tp.message and tp.window is kept
-    tp.data = np.zeros(())
+    data = tp.data
+    with pytest.raises(BitprismError, match="complex"):
+        tp.data = np.zeros(3, np.complex64)
+    assert "complex" in tp.message and tp.window is kept and tp.data is data
+    with pytest.raises(BitprismError, match="0-d"):
+        tp.data = np.zeros(())
     assert "0-d" in tp.message
-    tp.data = np.zeros((0, 4), np.float32)
+    with pytest.raises(BitprismError, match="empty"):
+        tp.data = np.zeros((0, 4), np.float32)
     assert "empty" in tp.message and tp.window is kept
-    tp.rows = 99
+    with pytest.raises(BitprismError, match=r"1\.\.32"):
+        tp.rows = 99
     assert "1..32" in tp.message and tp.rows == 16
-    tp.format_a = "float16"
+    with pytest.raises(BitprismError, match="not among the formats"):
+        tp.format_a = "float16"
     assert "not among the formats" in tp.message and tp.format_a == ""
-    tp.rounding = "sideways"
-    assert "rounding must be one of" in tp.message
-    tp.selected = (1, 2, 3)
+    with pytest.raises(BitprismError, match="rounding must be one of"):
+        tp.rounding = "sideways"
+    assert "rounding must be one of" in tp.message and tp.rounding == "roundTiesToEven"
+    with pytest.raises(BitprismError, match="one index per axis"):
+        tp.selected = (1, 2, 3)
     assert "one index per axis" in tp.message and tp.selected == ()
+    assert tp.window is kept
     tp.view = "class"  # a good change clears the message
     assert tp.message == "" and tp.window is not kept
 
@@ -344,3 +358,165 @@ def test_case_state_round_trip_and_static_html(tmp_path) -> None:
     bad = dict(state, data=dict(state["data"], dtype="object"))
     with pytest.raises(BitprismError, match="state.data.dtype"):
         TensorPrism._from_case_state(bad)
+
+
+# ----- issue 16 --------------------------------------------------------------------------------
+BAD_TENSOR_ARGUMENTS = [
+    ({"formats": ["fp17"]}, r"unknown format 'fp17'"),
+    ({"formats": "bfloat16"}, r"formats must be a list"),
+    ({"formats": []}, r"needs at least one format"),
+    ({"rows": "x"}, r"expected an int"),
+    ({"rows": 99}, r"rows must be in 1\.\.32"),
+    ({"seed": 2**64}, r"seed must be in 0\.\.9223372036854775807"),
+    ({"seed": -1}, r"seed must be in 0\.\.9223372036854775807"),
+    ({"view": 5}, r"expected a unicode string"),
+    ({"view": "heat"}, r"view must be one of"),
+    ({"format_a": "float16"}, r"not among the formats"),
+    ({"format_a": 3}, r"format_a must be a format name or Format"),
+    ({"fixed": (1.5, 0)}, r"fixed holds integer indices"),
+    ({"selected": (0, 99)}, r"out of range"),
+    ({"row_axis": None}, r"row_axis must be an axis"),
+    ({"colour": "red"}, r"TensorPrism has no option 'colour'"),
+    ({"window": 1}, r"TensorPrism has no option 'window'"),
+]
+
+
+@pytest.mark.parametrize(("kwargs", "message"), BAD_TENSOR_ARGUMENTS,
+                         ids=[repr(k)[:40] for k, _ in BAD_TENSOR_ARGUMENTS])
+def test_constructor_raises_bitprism_error(kwargs: dict, message: str) -> None:
+    """Issue 16 item 15: bad constructor arguments raise BitprismError (``rows="x"`` raised
+    traitlets' TraitError; seeds of 2**63 and more were taken)."""
+    with pytest.raises(BitprismError, match=message):
+        TensorPrism(np.ones((4, 5), np.float32), formats=kwargs.pop("formats", FMTS), **kwargs)
+
+
+def test_nan_and_inf_cells_raise_no_warning_in_any_view() -> None:
+    """Issue 16 item 9: "invalid value encountered in subtract/equal" RuntimeWarnings from
+    the compare view and the whole-tensor passes on NaN and Inf data (warnings are errors in
+    this test suite, and shown as the widget's message)."""
+    a = np.array([[np.nan, np.inf, -np.inf, 1.0], [0.0, -1e6, 1e-8, -np.nan]], np.float32)
+    tp = TensorPrism(a, formats=FMTS, format_b="float8_e4m3fn")
+    for view in ("value", "class", "cast", "error", "compare"):
+        for log_scale in (False, True):
+            tp.view, tp.log_scale = view, log_scale
+            assert tp.message == "", (view, tp.message)
+    for kind in ("nan", "inf", "overflow", "underflow", "largest_error"):
+        for unit in ("ulp", "relative"):
+            tp.error_unit = unit
+            tp.find_next(kind)
+            assert "Warning" not in tp.message, (kind, tp.message)
+    tp.select((0, 0))
+    assert tp.message == "" and tp.prism.comparison.input.is_nan
+
+
+def test_custom_formats_everywhere_a_builtin_goes(tmp_path) -> None:
+    """Issue 16 item 12: ``TensorPrism(x, formats=[<custom Format>])``; format A and B given as
+    a Format, by name or from the menus; saved and reopened with its case."""
+    from bitprism.formats import Format
+    from bitprism.ui.case_file import open_case
+
+    e3m3 = Format("e3m3", 3, 3, specials="finite")
+    a = _tensor()
+    tp = TensorPrism(a, formats=[e3m3], rows=6, cols=6)
+    assert tp.message == "" and tp.window.casts[0].format is e3m3
+    tp.formats = ["bfloat16", e3m3]
+    tp.a_menu.value = "e3m3"  # chosen in the menu, by name
+    assert tp.format_a == "e3m3" and tp._fmt("a") is e3m3 and tp._fmt("b").name == "bfloat16"
+    tp.format_a = get_format("bfloat16")  # Format objects, as in formats
+    tp.format_b = e3m3
+    tp.view = "compare"
+    assert tp.message == "" and (tp.format_a, tp.format_b) == ("bfloat16", "e3m3")
+    assert tp._fmt("b") is e3m3 and tp.b_menu.value == "e3m3"
+    tp.goto("2, 4")
+    assert [f.name for f in tp.prism.format_objects] == ["bfloat16", "e3m3"]
+    for path in (tp.save_case(tmp_path / "t.json"), tp.export_html(tmp_path / "t.html")):
+        back = open_case(path)
+        assert back.format_objects == [get_format("bfloat16"), e3m3]
+        assert (back.format_a, back.format_b) == ("bfloat16", "e3m3") and back.message == ""
+        assert np.array_equal(back.window.casts[1].codes, tp.window.casts[1].codes)
+    with pytest.raises(BitprismError, match="'float16' is a built-in format"):
+        tp.formats = [Format("float16", 5, 2)]
+
+
+def test_data_trait_never_compares_tensors_element_by_element() -> None:
+    """Issue 16 item 13: traitlets told a new value from ``old == new``, which for arrays
+    compares every element (reading all of a memmap) and allocates a boolean array of the
+    tensor's size. The data trait tells a new tensor by identity."""
+
+    compared: list[str] = []
+
+    class Watched(np.ndarray):  # traitlets swallows errors raised here: record instead
+        def __eq__(self, other):  # type: ignore[override]
+            compared.append("==")
+            return np.ndarray.__eq__(self, other)
+
+        def __ne__(self, other):  # type: ignore[override]
+            compared.append("!=")
+            return np.ndarray.__ne__(self, other)
+
+    a = np.arange(12, dtype=np.float32).reshape(3, 4).view(Watched)
+    tp = TensorPrism(a, formats=FMTS)
+    token = tp._token
+    tp.data = tp.data  # the same tensor: no change
+    assert tp._token == token
+    tp.data = (a + 1).view(Watched)
+    assert tp._token == token + 1 and tp.window.raw[0, 0] == 1
+    assert compared == []
+
+
+_MEMMAP_PROBE = r"""
+import json, sys, time, tracemalloc
+import numpy as np
+from bitprism.ui.tensor_prism import TensorPrism
+
+path, shape = sys.argv[1], tuple(json.loads(sys.argv[2]))
+TensorPrism(np.zeros((2, 4, 4), np.float32), summary_scope="slice")  # imports and compiles
+
+def peak_rss_mib():
+    with open("/proc/self/status") as fh:
+        return next(int(l.split()[1]) for l in fh if l.startswith("VmHWM:")) / 1024
+
+with open("/proc/self/clear_refs", "w") as fh:  # reset the peak (Linux 4.0+)
+    fh.write("5")
+rss = peak_rss_mib()
+data = np.memmap(path, dtype=np.float32, mode="r", shape=shape)
+tracemalloc.start()
+t = time.perf_counter()
+tp = TensorPrism(data, summary_scope="slice")
+seconds = time.perf_counter() - t
+allocated = tracemalloc.get_traced_memory()[1] / 2**20
+print(json.dumps({"seconds": seconds, "allocated_mib": allocated,
+                  "rss_mib": peak_rss_mib() - rss, "counts": tp.nav_counts["nan"].value}))
+"""
+
+
+@pytest.mark.skipif(sys.platform != "linux", reason="reads /proc/self for the peak RSS")
+def test_memmap_construction_costs_the_window_not_the_tensor(tmp_path) -> None:
+    """Issue 16 item 13 (reproducer: a TensorPrism on a 1e9-float32 memmap took 27-43 s and
+    allocated +941 MiB): building one on 2**28 float32 (1 GiB, a sparse file that costs no
+    disk) reads its window and one 2-D slice for the summary, not the tensor. Measured in a
+    subprocess: allocations (tracemalloc) and the peak RSS (mapped pages read count there)."""
+    shape = (256, 1024, 1024)  # 2**28 float32, invented zeros
+    path = tmp_path / "big.f32"
+    with open(path, "wb") as fh:
+        fh.truncate(4 * 2**28)
+    out = subprocess.run([sys.executable, "-c", _MEMMAP_PROBE, str(path), json.dumps(shape)],
+                         capture_output=True, text=True, timeout=600, check=True)
+    got = json.loads(out.stdout)
+    assert got["allocated_mib"] < 64, got  # a boolean array of the tensor was 256 MiB
+    assert got["rss_mib"] < 128, got  # reading the whole file maps 1 GiB
+    assert got["counts"] == "NaN: press ◀ ▶ to find", got  # no whole pass before asked
+
+
+def test_counts_of_a_large_tensor_wait_for_a_press() -> None:
+    """Issue 16 item 13: the counts beside the find buttons are a whole pass over the tensor;
+    above the size the summary would scan with a progress bar, and when the summary scans a
+    slice only, they are made when asked for."""
+    a = np.zeros((5, 1024, 1024), np.float32)  # 5 Mi elements, invented zeros
+    a[3, 7, 9] = np.nan
+    tp = TensorPrism(a, formats=FMTS, summary_scope="slice")
+    assert tp.nav_counts["nan"].value == "NaN: press ◀ ▶ to find"
+    tp.nav_buttons["next-nan"].click()
+    assert tp.selected == (3, 7, 9) and tp.nav_counts["nan"].value == "NaN: 1"
+    small = TensorPrism(a[:2, :64, :64], formats=FMTS, summary_scope="slice")
+    assert small.nav_counts["nan"].value == "NaN: 0"  # cheap: counted at once, as before

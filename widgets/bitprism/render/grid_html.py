@@ -251,9 +251,11 @@ def paint_window(
                 step = _steps(mag, 0.0, hi)
                 caption = (f"value, linear scale: -{_fmt_num(hi)} .. 0 .. {_fmt_num(hi)} "
                            "(violet negative, teal positive)")
-        sign = np.where(x < 0, "v-", "v+").astype(object)
+        with np.errstate(invalid="ignore"):  # NaN cells compare False; painted below
+            sign = np.where(x < 0, "v-", "v+").astype(object)
+            zero = finite & (x == 0)
         keys[...] = sign + step.astype(str).astype(object)
-        keys[finite & (x == 0)] = "v0"
+        keys[zero] = "v0"
         keys[np.isinf(x)] = "inf"
         keys[np.isnan(x)] = "nan"
         labels[...] = np.array([short_label(v) for v in x.reshape(-1).tolist()],
@@ -278,8 +280,10 @@ def paint_window(
         keys[...] = ("e" + step.astype(str)).astype(object)
         labels[...] = np.array([short_label(v) for v in err.reshape(-1).tolist()],
                                object).reshape(x.shape)
-        keys[ok & (err == 0)] = "e0"
-        labels[ok & (err == 0)] = "0"
+        with np.errstate(invalid="ignore"):  # err is NaN where there is no finite result
+            exact = ok & (err == 0)
+        keys[exact] = "e0"
+        labels[exact] = "0"
         for k, name in enumerate(CAST_KINDS):  # no finite result: the cell's class
             m = ~ok & (c.kinds == k)
             keys[m] = _CAST_PAINT[name]

@@ -122,7 +122,7 @@ def _input_format(dt: np.dtype) -> Format | None:
 def input_kinds(a: np.ndarray) -> np.ndarray:
     """``INPUT_KINDS`` index of every element (int8)."""
     fmt = _input_format(a.dtype)
-    if fmt is None:
+    if fmt is None:  # integers and bools: no NaN to compare
         return np.where(a == 0, _IN["zero"], _IN["normal"]).astype(np.int8)
     k = np.asarray(fields(bits_of(a), fmt).kind)
     out = np.full(k.shape, _IN["normal"], np.int8)
@@ -183,7 +183,8 @@ def _underflow_mask(x: np.ndarray, fmt: Format, options: CastOptions) -> np.ndar
     with np.errstate(invalid="ignore"):
         m = np.isfinite(x) & (x != 0) & np.where(x < 0, ax < zn, ax < zp)
     if not fmt.signed:
-        m &= ~(x < 0)
+        with np.errstate(invalid="ignore"):  # NaN inputs compare False
+            m &= ~(x < 0)
     return m
 
 
@@ -206,7 +207,8 @@ def cast_cells(raw: np.ndarray, fmt: Format, options: CastOptions, part: int | N
         kinds[finite_in & (res_kind == CodeClass.SUBNORMAL)] = _CAST["subnormal"]
         kinds[finite_in & (x != 0) & (q == 0)] = _CAST["underflow"]
     if options.rounding == "stochastic":
-        over = finite_in & (np.abs(x) > float(fmt.max_finite))
+        with np.errstate(invalid="ignore"):  # NaN inputs compare False
+            over = finite_in & (np.abs(x) > float(fmt.max_finite))
     else:
         over = _overflow_mask(x, fmt, options)
     kinds[over] = _CAST["overflow"]
@@ -232,11 +234,13 @@ def compare_cells(x: np.ndarray, a: CastCells, b: CastCells) -> tuple[np.ndarray
     the larger error over the smaller (Inf when the smaller is 0, 1 for ties, NaN if not
     comparable).
     """
-    ea = np.abs(a.values - x)
-    eb = np.abs(b.values - x)
-    ok = np.isfinite(ea) & np.isfinite(eb) & (a.kinds != _CAST["invalid"]) & (
-        b.kinds != _CAST["invalid"])
-    winner = np.where(ea < eb, 1, np.where(eb < ea, -1, 0)).astype(np.int8)
+    # NaN and Inf cells are expected here (Inf - Inf and NaN compare as NaN, marked -2 below)
+    with np.errstate(invalid="ignore", over="ignore"):
+        ea = np.abs(a.values - x)
+        eb = np.abs(b.values - x)
+        ok = np.isfinite(ea) & np.isfinite(eb) & (a.kinds != _CAST["invalid"]) & (
+            b.kinds != _CAST["invalid"])
+        winner = np.where(ea < eb, 1, np.where(eb < ea, -1, 0)).astype(np.int8)
     winner[~ok] = -2
     with np.errstate(divide="ignore", invalid="ignore"):
         lo, hi = np.minimum(ea, eb), np.maximum(ea, eb)
@@ -479,10 +483,12 @@ def largest_error(arr: np.ndarray, fmt: object, options: CastOptions,
         if not np.isfinite(err).any():
             continue
         m = float(np.nanmax(err))
+        with np.errstate(invalid="ignore"):  # err is NaN where there is no finite result
+            hits = int(np.count_nonzero(err == m))
         if best is None or m > best:
-            best, count = m, int(np.count_nonzero(err == m))
+            best, count = m, hits
         elif m == best:
-            count += int(np.count_nonzero(err == m))
+            count += hits
     return best, count
 
 

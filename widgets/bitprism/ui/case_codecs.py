@@ -20,9 +20,12 @@ __all__ = [
     "CaseFieldError",
     "MAX_FORMATS",
     "MAX_NOTE_CHARS",
+    "MAX_SEED",
     "MAX_TEXT_CHARS",
     "MAX_WINDOW_CELLS",
     "MAX_WINDOW_SIDE",
+    "check_storable_format",
+    "check_utf8",
     "check_window_size",
     "code_from_hex",
     "code_to_hex",
@@ -42,6 +45,7 @@ __all__ = [
 MAX_NOTE_CHARS = 20_000
 MAX_TEXT_CHARS = 4_000  # value and expression texts
 MAX_FORMATS = 64
+MAX_SEED = (1 << 63) - 1  # seeds are JSON integers within int64; numpy's generators take them
 MAX_WINDOW_SIDE = 32  # a tensor window stored in a case is at most 32 x 32 cells
 MAX_WINDOW_CELLS = MAX_WINDOW_SIDE * MAX_WINDOW_SIDE
 
@@ -127,11 +131,23 @@ def want_str(
     want(value, where, str)
     if len(value) > max_chars:
         raise CaseFieldError(where, f"text longer than {max_chars} characters ({len(value)})")
+    check_utf8(value, where)
     if choices is not None and value not in choices:
         raise CaseFieldError(
             where, f"must be one of {', '.join(repr(c) for c in choices)}; got {value!r}"
         )
     return str(value)
+
+
+def check_utf8(text: str, where: str) -> None:
+    """Refuse text UTF-8 cannot encode (a lone surrogate such as JSON's ``"\\ud800"``): a case
+    file is UTF-8, so such text could be read but never written again."""
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise CaseFieldError(
+            where, f"text holds {text[exc.start]!r} at position {exc.start}, a lone surrogate "
+            "that UTF-8 cannot encode") from None
 
 
 def want_list(value: Any, where: str, max_len: int) -> list[Any]:
@@ -198,6 +214,18 @@ def format_from_json(value: Any, where: str) -> Format:
         raise CaseFieldError(where, str(exc)) from None
 
 
+def check_storable_format(fmt: Format, where: str) -> None:
+    """Refuse a format a case file could not hold, with the checks ``format_from_json`` makes
+    on reading (a widget checks its formats with this, so it never saves what it cannot read)."""
+    if FORMATS.get(fmt.name) == fmt:
+        return
+    if fmt.name in FORMATS:
+        raise CaseFieldError(
+            f"{where}.name", f"{fmt.name!r} is a built-in format; a format of your own needs a "
+            "name of its own")
+    format_from_json(fmt.to_params(), where)
+
+
 def code_to_hex(code: int, fmt: Any) -> str:
     """A bit pattern as ``0x`` hex padded to the format's width (``0x7e00`` for float16)."""
     f = get_format(fmt)
@@ -240,7 +268,7 @@ def options_from_json(value: Any, where: str) -> dict[str, Any]:
                                tuple(SUBNORMAL_MODES)),
     }
     seed = value.get("seed")
-    out["seed"] = None if seed is None else want_int(seed, f"{where}.seed", 0, (1 << 63) - 1)
+    out["seed"] = None if seed is None else want_int(seed, f"{where}.seed", 0, MAX_SEED)
     return out
 
 

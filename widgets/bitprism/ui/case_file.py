@@ -33,7 +33,7 @@ from typing import Any, ClassVar
 
 from ..errors import BitprismError
 from ..render.case_page import case_page
-from .case_codecs import MAX_NOTE_CHARS, get_format_layout
+from .case_codecs import MAX_NOTE_CHARS, check_utf8, get_format_layout
 from .case_envelope import (
     CASE_KINDS,
     CASE_SCHEMA,
@@ -90,6 +90,7 @@ class CaseFileMixin:
             raise BitprismError(f"note must be text, got {type(note).__name__}")
         if len(note) > MAX_NOTE_CHARS:
             raise BitprismError(f"note is {len(note)} characters; at most {MAX_NOTE_CHARS}")
+        check_utf8(note, "note")  # a case file is UTF-8: what it cannot encode is refused now
         state = self._case_state()
         return {
             "bitprism_case": CASE_SCHEMA,

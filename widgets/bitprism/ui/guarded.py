@@ -6,16 +6,9 @@ import functools
 from contextlib import contextmanager
 from typing import Any, Callable, Iterator
 
-from ..errors import ParseError
+from .refusal import message_for
 
 __all__ = ["BatchedRefresh", "guarded", "message_for"]
-
-
-def message_for(exc: BaseException) -> str:
-    """One line a person can act on: parse errors say the column, others their kind."""
-    if isinstance(exc, ParseError):
-        return f"{exc.reason} (column {exc.column})"
-    return f"{type(exc).__name__}: {exc}"
 
 
 def guarded(method: Callable[..., Any]) -> Callable[..., Any]:

@@ -10,11 +10,12 @@ area, never raised into the notebook.
 from __future__ import annotations
 
 import functools
+from dataclasses import dataclass
 from typing import Any
 
 import ipywidgets as W
 from traitlets import Any as AnyTrait
-from traitlets import Bool, Int, List, TraitError, Unicode, observe, validate
+from traitlets import TraitError, observe, validate
 
 from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError, ParseError
@@ -22,7 +23,7 @@ from ..formats import FORMATS, Format, get_format
 from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare_exact
 from ..numerics.decimal_text import exact_text
 from ..numerics.exact import ExactValue, as_exact
-from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, check_option
+from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES
 from ..numerics.parse import parse, parse_bits
 from ..numerics.scalar import decode_exact
 from ..render.compare_html import (
@@ -35,7 +36,16 @@ from ..render.palette import button_colors
 from ..render.widget_html import message_html
 from . import prism_case
 from .case_file import CaseFileMixin
-from .cast_settings import CastSettings
+from .cast_settings import CastSettings, check_formats, formats_argument
+from .refusal import (
+    BoolTrait,
+    IntTrait,
+    ListTrait,
+    TextTrait,
+    ValueTrait,
+    WidgetValueError,
+    refusal,
+)
 
 __all__ = ["Prism"]
 
@@ -43,6 +53,21 @@ _VIA_CHOICES = (("direct", ""), ("through float32", "float32"))
 _FIELD_ROLES = ("sign", "exponent", "significand")
 
 
+@dataclass(frozen=True)
+class _View:
+    """Everything a Prism shows for one state of its traits, built before any of it is shown:
+    a state whose view cannot be built is refused, so the widget never shows, saves or exports
+    one it could not (the text and static HTML are kept for display and export)."""
+
+    comparison: Comparison
+    formats: tuple[Format, ...]
+    header: str
+    bands: tuple[str, ...]
+    bits: tuple[str, ...]
+    aligned: str
+    evaluation: str
+    text: str
+    html: str
 
 
 class _Band:
@@ -105,9 +130,8 @@ class _Band:
         b.on_click(functools.partial(prism._on_nav_click, index, action))
         return b
 
-    def show(self, c: Comparison, row: FormatRow) -> None:
-        self.html.value = band_html(c, row, tiles=False)
-        bits = row.bits()
+    def show(self, html: str, bits: str, row: FormatRow) -> None:
+        self.html.value = html
         for b, ch in zip(self.bits, bits):
             if b.description != ch:  # skip the trait machinery for unchanged bits
                 b.description = ch
@@ -120,32 +144,45 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
 
     ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
     (numbers are kept as exact text); ``prism.comparison`` is the current ``Comparison``.
+    A value or option the Prism cannot show raises ``WidgetValueError`` (a ``BitprismError``)
+    when set from code, and is shown as a message when typed; the last good view stays.
     """
 
-    value = AnyTrait(
+    value = ValueTrait(
         "0.1", help="the value or expression shown, as exact text (numbers are converted exactly)"
     )
-    formats = List(
+    formats = ListTrait(
         AnyTrait(),
         default_value=list[Any](DEFAULT_FORMATS),
         help="formats shown, by name, or Format objects for custom layouts",
     )
-    rounding = Unicode("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
-    overflow = Unicode("standard", help="'standard' (Inf/NaN as the format defines) or 'saturate'")
-    subnormals = Unicode("keep", help="'keep' subnormal results or 'flush' them to zero")
-    seed = Int(None, allow_none=True, help="seed of stochastic rounding (None: fresh draws)")
-    via = Unicode("", help="format the input is rounded to first ('' = direct), e.g. 'float32'")
-    aligned = Bool(True, help="show the weight-aligned view under the bands")
-    source_format = Unicode(
+    rounding = TextTrait("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
+    overflow = TextTrait(
+        "standard", help="'standard' (Inf/NaN as the format defines) or 'saturate'")
+    subnormals = TextTrait("keep", help="'keep' subnormal results or 'flush' them to zero")
+    seed = IntTrait(None, allow_none=True,
+                    help="seed of stochastic rounding, 0..2**63-1 (None: fresh draws)")
+    via = TextTrait("", help="format the input is rounded to first ('' = direct), e.g. 'float32'")
+    aligned = BoolTrait(True, help="show the weight-aligned view under the bands")
+    source_format = TextTrait(
         "", help="the band whose bit pattern is the source ('' = the typed value is)"
     )
-    source_code = Int(None, allow_none=True, help="bit pattern of the source band, if any")
-    expression = Unicode("", help="expression computed with per-format arithmetic")
-    message = Unicode("", help="the last error or note shown to the person")
+    source_code = IntTrait(None, allow_none=True, help="bit pattern of the source band, if any")
+    expression = TextTrait("", help="expression computed with per-format arithmetic")
+    message = TextTrait("", help="the last error or note shown to the person")
     comparison = AnyTrait(None, read_only=True, help="the current Comparison (read-only)")
 
+    _view_traits = ("value", "formats", "rounding", "overflow", "subnormals", "seed", "via",
+                    "aligned", "source_format", "source_code", "expression")
+
     def __init__(self, value: Any = "0.1", formats: Any = None, **kwargs: Any) -> None:
+        unknown = [k for k in kwargs if k not in self.class_trait_names() or k == "comparison"]
+        if unknown:
+            raise BitprismError(f"Prism has no option {unknown[0]!r}; options: value, formats, "
+                                f"{', '.join(self._view_traits[2:])}")
+        format_list = formats_argument(formats)
         self._suspend = 0
+        self._view: _View | None = None  # what is shown: the last view that could be built
         self._exact: tuple[str, ExactValue] | None = None  # the value trait's text, parsed
         self._bands: list[_Band] = []
         self._band_formats: list[Format] = []
@@ -160,13 +197,16 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             self._bit_styles[role] = W.ButtonStyle(button_color=fill, text_color=text)
         self._build_controls()
         self._suspend = 1  # one refresh after every initial trait is in place
-        super().__init__(**kwargs)
-        self._suspend = 0
-        self.add_class("bitprism-prism")
-        with self._bulk():
-            self.value = value
-            if formats is not None:
-                self.formats = list(formats)
+        try:
+            super().__init__(**kwargs)
+            self._suspend = 0
+            self.add_class("bitprism-prism")
+            with self._bulk():
+                self.value = value
+                if format_list is not None:
+                    self.formats = format_list
+        except TraitError as exc:  # an ipywidgets trait (layout=...) refused its value
+            raise refusal(exc) from None
 
     # ----- controls --------------------------------------------------------------------------
     def _build_controls(self) -> None:
@@ -239,62 +279,51 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         return self._exact[1]
 
     def _keep_exact(self, x: ExactValue) -> str:
-        """Remember ``x`` under its exact text (what the value trait then holds)."""
+        """Remember ``x`` under its exact text (what the value trait then holds), once that
+        text is known to read back: it is what a case file stores."""
         text = exact_text(x)
+        try:
+            parse(text)
+        except ParseError as exc:
+            raise BitprismError(
+                f"value: its exact text has {len(text)} characters and does not read back "
+                f"({exc.reason}); a Prism keeps values whose exact text does") from None
         self._exact = (text, x)
         return text
 
     @validate("value")
     def _valid_value(self, proposal: Any) -> str:
         v = proposal["value"]
-        if isinstance(v, str):
-            try:
-                self._read(v)
-            except ParseError as exc:
-                raise TraitError(f"value {v!r} is not a number: {message_for(exc)}") from exc
-            return v.strip()
         try:
+            if isinstance(v, str):
+                try:
+                    self._read(v)
+                except ParseError as exc:
+                    raise BitprismError(
+                        f"value {v!r} is not a number: {message_for(exc)}") from exc
+                return v.strip()
             return self._keep_exact(as_exact(v))
-        except BitprismError as exc:
-            raise TraitError(str(exc)) from exc
+        except Exception as exc:
+            self._refuse_value(exc)
 
     @validate("formats")
     def _valid_formats(self, proposal: Any) -> list[Any]:
-        out: list[Any] = []
-        seen = set()
-        for spec in proposal["value"]:
-            try:
-                f = get_format(spec)
-            except BitprismError as exc:
-                raise TraitError(str(exc)) from exc
-            if f in seen:
-                continue
-            seen.add(f)
-            out.append(f.name if FORMATS.get(f.name) == f else f)
-        if not out:
-            raise TraitError("a Prism needs at least one format")
-        return out
-
-    @validate("rounding", "overflow", "subnormals")
-    def _valid_option(self, proposal: Any) -> str:
         try:
-            return check_option(proposal["trait"].name, proposal["value"])
-        except BitprismError as exc:
-            raise TraitError(str(exc)) from exc
+            return check_formats(proposal["value"], "Prism")
+        except Exception as exc:
+            self._refuse_value(exc)
 
     @validate("via", "source_format")
     def _valid_format_name(self, proposal: Any) -> str:
         v = proposal["value"]
         if not v:
             return ""
-        if proposal["trait"].name == "source_format":
-            for f in self.format_objects:
-                if f.name == v:
-                    return v
         try:
+            if proposal["trait"].name == "source_format":
+                return self.shown_format(v).name
             return get_format(v).name
-        except BitprismError as exc:
-            raise TraitError(str(exc)) from exc
+        except Exception as exc:
+            self._refuse_value(exc)
 
     # ----- reactions -------------------------------------------------------------------------
     @observe(
@@ -305,33 +334,60 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self._refresh()
 
     def _refresh(self) -> None:
-        """The one path from traits to what is shown."""
+        """The one path from traits to what is shown. A state whose view cannot be built is
+        refused: the traits go back to the last good view's, which stays, and the message (and,
+        for code, ``WidgetValueError``) says why."""
         if self._suspend:
             return
         try:
-            fmts = self.format_objects
-            pinned = None
-            if self.source_format and self.source_code is not None:
-                pin_fmt = next((f for f in fmts if f.name == self.source_format), None)
-                if pin_fmt is not None:
-                    pinned = (pin_fmt, self.source_code)
-            c = compare_exact(
-                self._read(self.value),
-                self.value,
-                fmts,
-                self.options,
-                get_format(self.via) if self.via else None,
-                pinned,
-            )
-        except Exception as exc:  # keep the last good view, say what went wrong
-            self.message = message_for(exc)
-            return
-        self.set_trait("comparison", c)
+            view = self._build_view()
+        except Exception as exc:
+            self._refuse_view(exc)
+        self._view = view
+        self.set_trait("comparison", view.comparison)
         self.message = ""
+        fmts = list(view.formats)
         if fmts != self._band_formats:
             self._rebuild_bands(fmts)
-        self._show(c)
+        self._show(view)
+        self._remember_good_view()
         self._snapshot_changed()
+
+    def _build_view(self) -> _View:
+        """Compute and render everything shown for the current traits (nothing shown yet)."""
+        fmts = self.format_objects
+        options = self.options
+        pinned = None
+        if self.source_format and self.source_code is not None:
+            pin_fmt = next((f for f in fmts if f.name == self.source_format), None)
+            if pin_fmt is not None:
+                pin_fmt.classify(self.source_code)  # the pattern fits the format
+                pinned = (pin_fmt, self.source_code)
+        c = compare_exact(
+            self._read(self.value),
+            self.value,
+            fmts,
+            options,
+            get_format(self.via) if self.via else None,
+            pinned,
+        )
+        evaluation = ""
+        if self.expression.strip():
+            from ..numerics.evaluate import evaluate
+
+            evaluation = evaluations_html(
+                [evaluate(self.expression, f, options=options) for f in fmts])
+        return _View(
+            comparison=c,
+            formats=tuple(fmts),
+            header=header_html(c),
+            bands=tuple(band_html(c, row, tiles=False) for row in c.rows),
+            bits=tuple(row.bits() for row in c.rows),
+            aligned=aligned_html(c) if self.aligned else "",
+            evaluation=evaluation,
+            text=c.to_text(),
+            html=c.to_html(),
+        )
 
     def _rebuild_bands(self, fmts: list[Format]) -> None:
         self._bands = [_Band(self, f, i) for i, f in enumerate(fmts)]
@@ -344,16 +400,16 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         if not self.children:
             self._layout_children()
 
-    def _show(self, c: Comparison) -> None:
-        self.header_html.value = header_html(c)
-        for band, row in zip(self._bands, c.rows):
-            band.show(c, row)
+    def _show(self, view: _View) -> None:
+        self.header_html.value = view.header
+        for band, row, html, bits in zip(self._bands, view.comparison.rows, view.bands, view.bits):
+            band.show(html, bits, row)
             band.box.layout.border = (
                 "2px solid #6f51b4" if row.format.name == self.source_format else ""
             )
-        self.aligned_html.value = aligned_html(c) if self.aligned else ""
+        self.aligned_html.value = view.aligned
         self._sync_controls()
-        self._show_evaluation()
+        self.evaluation_html.value = view.evaluation
 
     def _sync_controls(self) -> None:
         self._suspend += 1
@@ -369,20 +425,6 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         finally:
             self._suspend -= 1
 
-    def _show_evaluation(self) -> None:
-        if not self.expression.strip():
-            self.evaluation_html.value = ""
-            return
-        from ..numerics.evaluate import evaluate
-
-        try:
-            options = self.options
-            evs = [evaluate(self.expression, f, options=options) for f in self.format_objects]
-        except Exception as exc:
-            self.message = message_for(exc)
-            return
-        self.evaluation_html.value = evaluations_html(evs)
-
     @observe("message")
     def _on_message(self, change: Any) -> None:
         self.message_html.value = message_html(change["new"])
@@ -395,16 +437,20 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self.submit_value(change["new"])
 
     def submit_value(self, text: str) -> None:
-        """What Enter in the value box does: parse (once), and on error keep the last view."""
+        """What Enter in the value box does: parse (once), and on error keep the last view
+        (the message says why)."""
         try:
             self._read(text)
         except ParseError as exc:
             self.message = message_for(exc)
             return
-        with self._bulk():
-            self.source_format = ""
-            self.source_code = None
-            self.value = text
+        try:
+            with self._bulk():
+                self.source_format = ""
+                self.source_code = None
+                self.value = text
+        except WidgetValueError as exc:
+            self.message = exc.shown
 
     @guarded
     def _on_bits_text(self, change: Any) -> None:
@@ -413,18 +459,23 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self.submit_bits(change["new"], self.bits_format.value)
 
     def submit_bits(self, text: str, fmt: Any) -> None:
-        """Set one band's raw bit pattern; the others follow from its exact value."""
-        f = get_format(fmt)
+        """Set one band's raw bit pattern; the others follow from its exact value. On error
+        the last view stays and the message says why."""
+        f = self.shown_format(fmt)
         try:
             code = parse_bits(text, f)
         except ParseError as exc:
             self.message = message_for(exc)
             return
-        self.set_source(f, code)
+        try:
+            self.set_source(f, code)
+        except WidgetValueError as exc:
+            self.message = exc.shown
 
     def set_source(self, fmt: Any, code: int) -> None:
-        """Make ``fmt``'s band the source at bit pattern ``code`` and recompute all others."""
-        f = get_format(fmt)
+        """Make ``fmt``'s band the source at bit pattern ``code`` and recompute all others
+        (``fmt``: a shown format, by name or ``Format``; custom ones included)."""
+        f = self.shown_format(fmt)
         f.classify(code)
         if f not in self.format_objects:
             raise BitprismError(f"format {f.name!r} is not shown in this Prism")
@@ -471,25 +522,39 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     def _on_control(self, name: str, change: Any) -> None:
         if self._suspend:
             return
-        setattr(self, name, change["new"])
+        try:
+            setattr(self, name, change["new"])
+        except BitprismError:
+            self._sync_controls()  # the control shows the setting in effect again
+            raise
 
     @guarded
     def _on_seed(self, change: Any) -> None:
         if self._suspend:
             return
-        self.seed = change["new"]
+        try:
+            self.seed = change["new"]
+        except BitprismError:  # e.g. -1 or 2**63: not a seed a case file can hold
+            self._suspend += 1
+            try:
+                self.seed_input.value = 0 if self.seed is None else self.seed
+            finally:
+                self._suspend -= 1
+            raise
 
     @guarded
     def _on_add_format(self, change: Any) -> None:
         name = change["new"]
         if not name:
             return
-        self.formats = list(self.formats) + [name]
-        self._suspend += 1
         try:
-            self.add_format_menu.value = ""
+            self.formats = list(self.formats) + [name]
         finally:
-            self._suspend -= 1
+            self._suspend += 1
+            try:
+                self.add_format_menu.value = ""
+            finally:
+                self._suspend -= 1
 
     @guarded
     def _on_expression_text(self, change: Any) -> None:
@@ -500,14 +565,18 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     # ----- headless output ---------------------------------------------------------------------
     def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
         bundle = super()._repr_mimebundle_(**kwargs) or {}
-        if self.comparison is not None:
+        view = self._view
+        if view is not None:  # the comparison's own text and HTML, rendered with the view
             bundle = dict(bundle)
-            bundle.update(self.comparison._repr_mimebundle_())
+            bundle.update({"text/plain": view.text, "text/html": view.html})
         return bundle
 
     def to_html(self) -> str:
         """A static HTML snapshot of the current view (same markup as the bands)."""
-        return self.comparison.to_html(aligned=self.aligned) if self.comparison else ""
+        view = self._view
+        if view is None:
+            return ""
+        return view.html if self.aligned else view.comparison.to_html(aligned=False)
 
     # ----- case files (ui/case_file.py) ----------------------------------------------------------
     _case_kind = "prism"

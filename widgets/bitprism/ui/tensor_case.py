@@ -100,7 +100,12 @@ def read_tensor_case(state: Any) -> TensorCase:
     fl = want_list(state["formats"], "state.formats", MAX_FORMATS)
     if not fl:
         raise CaseFieldError("state.formats", "at least one format is needed")
-    fmts = [format_from_json(v, f"state.formats[{i}]") for i, v in enumerate(fl)]
+    fmts: list[Format] = []
+    for i, v in enumerate(fl):
+        f = format_from_json(v, f"state.formats[{i}]")
+        if any(g.name == f.name for g in fmts):
+            raise CaseFieldError(f"state.formats[{i}]", f"format {f.name!r} is listed twice")
+        fmts.append(f)
     opts = options_from_json(state.get("options", {}), "state.options")
     names = [f.name for f in fmts]
     ab = {}
@@ -116,24 +121,132 @@ def read_tensor_case(state: Any) -> TensorCase:
     cols = want_int(d["cols"], "state.data.cols", 1, MAX_SIDE)
     check_window_size(rows, cols, "state.data")
     arr = _window_data(d, rows, cols)
-    origin = None
-    if state.get("origin") is not None:
-        ol = want_list(state["origin"], "state.origin", 64)
-        origin = tuple(want_int(v, f"state.origin[{i}]", 0) for i, v in enumerate(ol))
-    selected: tuple[int, ...] = ()
-    if state.get("selected") is not None:
-        sl = want_list(state["selected"], "state.selected", 64)
-        sel = [want_int(v, f"state.selected[{i}]", 0) for i, v in enumerate(sl)]
-        if origin is not None and len(sel) == len(origin):
-            axes = state.get("axes") or [None, len(sel) - 1]
-            ra, ca = axes[0], axes[1]
-            r = sel[ra] - origin[ra] if isinstance(ra, int) else 0
-            c = sel[ca] - origin[ca] if isinstance(ca, int) else 0
-            if 0 <= r < rows and 0 <= c < cols:
-                selected = (r, c)
+    place = _read_place(state, rows, cols)
     kwargs = {"view": view, "log_scale": log_scale, "error_unit": unit, "summary_scope": scope,
               "rows": rows, "cols": cols, **opts, **ab}
-    return TensorCase(arr, fmts, kwargs, origin, selected)
+    return TensorCase(arr, fmts, kwargs, place.origin, place.selected_cell())
+
+
+@dataclass(frozen=True)
+class _Place:
+    """Where the saved window sat in the original tensor (each part optional in a file)."""
+
+    shape: tuple[int, ...] | None
+    axes: tuple[int | None, int] | None
+    origin: tuple[int, ...] | None
+    selected: tuple[int, ...] | None
+    rows: int
+    cols: int
+
+    def selected_cell(self) -> tuple[int, ...]:
+        """The selected cell in the saved window, ``()`` when none or outside the window."""
+        sel, origin = self.selected, self.origin
+        if sel is None or origin is None:
+            return ()
+        ra, ca = self.axes if self.axes is not None else (None, len(sel) - 1)
+        r = sel[ra] - origin[ra] if ra is not None else 0
+        c = sel[ca] - origin[ca]
+        others = all(sel[ax] == origin[ax] for ax in range(len(sel)) if ax not in (ra, ca))
+        return (r, c) if others and 0 <= r < self.rows and 0 <= c < self.cols else ()
+
+
+_MAX_NDIM = 64  # numpy's limit on the number of axes
+_MAX_DIM = (1 << 63) - 1  # an axis length numpy can index
+
+
+def _read_index(value: Any, where: str, shape: tuple[int, ...] | None) -> tuple[int, ...]:
+    """A tensor index: one integer per axis of ``shape`` (when known), each within it."""
+    items = want_list(value, where, _MAX_NDIM)
+    if shape is not None and len(items) != len(shape):
+        raise CaseFieldError(where, f"one index per axis of {list(shape)} expected, "
+                                    f"got {len(items)}")
+    if not items:
+        raise CaseFieldError(where, "an index needs at least one axis")
+    return tuple(want_int(v, f"{where}[{i}]", 0, _MAX_DIM if shape is None else shape[i] - 1)
+                 for i, v in enumerate(items))
+
+
+def _read_axes(value: Any, ndim: int | None) -> tuple[int | None, int]:
+    """``[row_axis, col_axis]``: distinct axes; the row axis is null for 1-D data only."""
+    items = want_list(value, "state.axes", 2)
+    if len(items) != 2:
+        raise CaseFieldError("state.axes", f"[row axis, column axis] expected, got {len(items)} "
+                                           "entries")
+    top = (ndim if ndim is not None else _MAX_NDIM) - 1
+    col = want_int(items[1], "state.axes[1]", 0, top)
+    if items[0] is None:
+        if ndim not in (None, 1):
+            raise CaseFieldError("state.axes[0]", f"a {ndim}-D tensor needs a row axis")
+        return None, col
+    row = want_int(items[0], "state.axes[0]", 0, top)
+    if ndim == 1:
+        raise CaseFieldError("state.axes[0]", "1-D data has no row axis (null)")
+    if row == col:
+        raise CaseFieldError("state.axes", f"row and column axes must differ; both are {row}")
+    return row, col
+
+
+def _read_place(state: dict[str, Any], rows: int, cols: int) -> _Place:
+    """``shape``, ``axes``, ``fixed``, ``window``, ``origin`` and ``selected``: each checked,
+    and against each other as the widget writes them (origin = fixed with the window's first
+    row and column on the shown axes)."""
+    shape = None
+    if "shape" in state:
+        items = want_list(state["shape"], "state.shape", _MAX_NDIM)
+        if not items:
+            raise CaseFieldError("state.shape", "a tensor has at least one axis")
+        shape = tuple(want_int(v, f"state.shape[{i}]", 1, _MAX_DIM) for i, v in enumerate(items))
+    ndim = None if shape is None else len(shape)
+    axes = _read_axes(state["axes"], ndim) if "axes" in state else None
+    fixed = _read_index(state["fixed"], "state.fixed", shape) if "fixed" in state else None
+    origin = None
+    if state.get("origin") is not None:
+        origin = _read_index(state["origin"], "state.origin", shape)
+    selected = None
+    if state.get("selected") is not None:
+        selected = _read_index(state["selected"], "state.selected", shape)
+    top = max(a for a in axes if a is not None) if axes is not None else -1
+    for name, index in (("fixed", fixed), ("origin", origin), ("selected", selected)):
+        if index is not None and top >= len(index):
+            raise CaseFieldError(f"state.{name}", f"one index per axis expected; state.axes "
+                                                  f"names axis {top}")
+    if origin is not None and selected is not None and len(origin) != len(selected):
+        raise CaseFieldError("state.selected", f"one index per axis expected ({len(origin)}), "
+                                               f"got {len(selected)}")
+    if "window" in state:
+        _check_window(state["window"], rows, cols, shape, axes, fixed, origin)
+    return _Place(shape, axes, origin, selected, rows, cols)
+
+
+def _check_window(value: Any, rows: int, cols: int, shape: tuple[int, ...] | None,
+                  axes: tuple[int | None, int] | None, fixed: tuple[int, ...] | None,
+                  origin: tuple[int, ...] | None) -> None:
+    """``state.window``: the first row and column shown and the saved window's size."""
+    w = want_object(value, "state.window", required=("row", "col", "rows", "cols"))
+    row = want_int(w["row"], "state.window.row", 0, _MAX_DIM)
+    col = want_int(w["col"], "state.window.col", 0, _MAX_DIM)
+    for key, saved in (("rows", rows), ("cols", cols)):
+        if want_int(w[key], f"state.window.{key}", 1, MAX_SIDE) != saved:
+            raise CaseFieldError(f"state.window.{key}", f"{w[key]} differs from state.data."
+                                                        f"{key} ({saved})")
+    if axes is None:
+        return
+    ra, ca = axes
+    if ra is None and (row != 0 or rows != 1):
+        raise CaseFieldError("state.window", "1-D data is shown as one row from row 0")
+    if shape is not None:
+        for where, ax, start, size in (("row", ra, row, rows), ("col", ca, col, cols)):
+            if ax is not None and start + size > shape[ax]:
+                raise CaseFieldError(f"state.window.{where}", f"{start} + {size} cells pass the "
+                                                              f"end of axis {ax} ({shape[ax]})")
+    if fixed is not None and origin is not None:
+        want = list(fixed)
+        if ra is not None:
+            want[ra] = row
+        want[ca] = col
+        if list(origin) != want:
+            raise CaseFieldError("state.origin", f"{list(origin)} is not where state.fixed and "
+                                                 f"state.window put the window ({want})")
 
 
 def _window_data(d: dict[str, Any], rows: int, cols: int) -> np.ndarray:

@@ -13,8 +13,10 @@ This module holds the widget itself (traits, validation, the refresh path, navig
 cell buttons are in ``cell_grid``, the other controls in ``tensor_controls``, the cached
 whole-tensor figures in ``tensor_stats`` and the case-file state in ``tensor_case``.
 
-After construction nothing a person does raises: a bad value, index, option or tensor shows a
-message in the widget and the last good view stays.
+Nothing a person does in the widget raises: a bad value, index, option or tensor shows a
+message and the last good view stays. The same values set from code raise ``WidgetValueError``
+(a ``BitprismError``), with the same message shown and the same view kept; the constructor
+raises ``BitprismError`` for anything it cannot show.
 """
 
 from __future__ import annotations
@@ -22,17 +24,17 @@ from __future__ import annotations
 import base64
 import functools
 import io
-from typing import Any
+from typing import Any, NoReturn
 
 import ipywidgets as W
 import numpy as np
 from traitlets import Any as AnyTrait
-from traitlets import Bool, Int, List, Tuple, Unicode, observe, validate
+from traitlets import TraitError, observe, validate
 
 from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError
-from ..formats import FORMATS, Format, get_format
-from ..numerics.options import CastOptions, check_option
+from ..formats import Format, get_format
+from ..numerics.options import CastOptions
 from ..render.grid_html import VIEWS, GridPaint, grid_html, legend_html, paint_window
 from ..render.scan_html import scan_html
 from ..render.widget_html import message_html, tensor_summary_html, window_position_html
@@ -48,10 +50,12 @@ from ..tensors.window import (
     make_window,
     parse_index,
 )
-from .case_codecs import MAX_FORMATS
 from .case_file import CaseFileMixin
-from .cast_settings import CastSettings
+from .cast_settings import CastSettings, check_formats, formats_argument
 from .cell_grid import CellGrid
+from .refusal import BoolTrait, IntTrait, ListTrait, TextTrait, TupleTrait, ValueTrait
+from .refusal import check_index, refusal
+from .selected_prism import show_selected
 from .tensor_case import SUMMARY_SCOPES, read_tensor_case, tensor_case_state
 from .tensor_controls import (
     KIND_WORDS,
@@ -62,6 +66,7 @@ from .tensor_controls import (
     trait_controls,
 )
 from .tensor_stats import TensorStats
+from .widget_internals import IdentityTrait
 
 __all__ = ["TensorPrism"]
 
@@ -79,36 +84,51 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
 
     _case_kind = "tensor_prism"
 
-    data = AnyTrait(None, help="the tensor, as the numpy view bitprism.as_array gives")
-    formats = List(AnyTrait(), default_value=list[Any](DEFAULT_FORMATS),
-                   help="formats cast to, by name, or Format objects for custom layouts")
-    format_a = Unicode("", help="format A: cast, error and compare views ('' = first format)")
-    format_b = Unicode("", help="format B of the compare view ('' = second format)")
-    rounding = Unicode("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
-    overflow = Unicode("standard", help="'standard' (Inf/NaN as the format defines) or 'saturate'")
-    subnormals = Unicode("keep", help="'keep' subnormal results or 'flush' them to zero")
-    seed = Int(None, allow_none=True, help="seed of stochastic rounding (None: fresh draws)")
-    view = Unicode("cast", help="cell colours: value, class, cast, error or compare")
-    log_scale = Bool(False, help="value view: colour by log-magnitude instead of linearly")
-    error_unit = Unicode("ulp", help="error view and largest-error search: 'ulp' or 'relative'")
-    row_axis = Int(0, allow_none=True, help="tensor axis shown as rows (None for 1-D data)")
-    col_axis = Int(1, help="tensor axis shown as columns")
-    fixed = Tuple(help="one index per axis; those of the axes not shown pick the slice")
-    row_offset = Int(0, help="first row shown")
-    col_offset = Int(0, help="first column shown")
-    rows = Int(16, help=f"rows shown (1..{MAX_SIDE})")
-    cols = Int(16, help=f"columns shown (1..{MAX_SIDE})")
-    selected = Tuple(help="tensor index of the selected cell; () when none")
-    summary_scope = Unicode("tensor", help="scan summary of the whole 'tensor' or the 2-D 'slice'")
-    summary_quantiles = Unicode(
+    # identity, not ==, tells a new tensor: == would read all of it (widget_internals)
+    data = IdentityTrait(None, help="the tensor, as the numpy view bitprism.as_array gives")
+    formats = ListTrait(AnyTrait(), default_value=list[Any](DEFAULT_FORMATS),
+                        help="formats cast to, by name, or Format objects for custom layouts")
+    format_a = ValueTrait("", help="format A: cast, error and compare views, by name or Format "
+                          "('' = first format)")
+    format_b = ValueTrait("", help="format B of the compare view ('' = second format)")
+    rounding = TextTrait("roundTiesToEven", help="IEEE 754 rounding direction or 'stochastic'")
+    overflow = TextTrait(
+        "standard", help="'standard' (Inf/NaN as the format defines) or 'saturate'")
+    subnormals = TextTrait("keep", help="'keep' subnormal results or 'flush' them to zero")
+    seed = IntTrait(None, allow_none=True,
+                    help="seed of stochastic rounding, 0..2**63-1 (None: fresh draws)")
+    view = TextTrait("cast", help="cell colours: value, class, cast, error or compare")
+    log_scale = BoolTrait(False, help="value view: colour by log-magnitude instead of linearly")
+    error_unit = TextTrait(
+        "ulp", help="error view and largest-error search: 'ulp' or 'relative'")
+    row_axis = IntTrait(0, allow_none=True, help="tensor axis shown as rows (None for 1-D data)")
+    col_axis = IntTrait(1, help="tensor axis shown as columns")
+    fixed = TupleTrait(help="one index per axis; those of the axes not shown pick the slice")
+    row_offset = IntTrait(0, help="first row shown")
+    col_offset = IntTrait(0, help="first column shown")
+    rows = IntTrait(16, help=f"rows shown (1..{MAX_SIDE})")
+    cols = IntTrait(16, help=f"columns shown (1..{MAX_SIDE})")
+    selected = TupleTrait(help="tensor index of the selected cell; () when none")
+    summary_scope = TextTrait(
+        "tensor", help="scan summary of the whole 'tensor' or the 2-D 'slice'")
+    summary_quantiles = TextTrait(
         "auto", help="error quantiles of the summary scan: auto, exact, histogram or none")
-    message = Unicode("", help="the last error or note shown to the person")
+    message = TextTrait("", help="the last error or note shown to the person")
     window = AnyTrait(None, read_only=True, help="the current Window (read-only)")
     summary = AnyTrait(None, read_only=True, help="the current summary ScanResult (read-only)")
 
+    _view_traits = ("data", "formats", "format_a", "format_b", "rounding", "overflow",
+                    "subnormals", "seed", "view", "log_scale", "error_unit", "row_axis",
+                    "col_axis", "fixed", "row_offset", "col_offset", "rows", "cols", "selected",
+                    "summary_scope", "summary_quantiles")
+
     def __init__(self, data: Any, formats: Any = None, **kwargs: Any) -> None:
+        for k in kwargs:
+            if k not in self.class_trait_names() or k in ("data", "window", "summary"):
+                raise BitprismError(f"TensorPrism has no option {k!r}; options: "
+                                    f"{', '.join(self._view_traits[1:])}")
+        format_list = formats_argument(formats)
         arr = as_tensor(data)  # raises BitprismError: there is no view to keep yet
-        self._constructing = True
         self._suspend = 1
         self._token = 0
         self._paint: GridPaint | None = None
@@ -123,21 +143,21 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         super().__init__()
         self.add_class("bitprism-tensorprism")
         try:
-            with self.hold_trait_notifications():
-                self.data = arr
-                self._reset_axes(arr)
-                if formats is not None:
-                    self.formats = list(formats)
-                for k, v in kwargs.items():
-                    if k not in self.class_trait_names() or k in ("window", "summary"):
-                        raise BitprismError(f"TensorPrism has no option {k!r}")
-                    setattr(self, k, v)
-        finally:
-            self._suspend = 0
-        self._refresh()
-        if self.window is None:
+            try:
+                with self.hold_trait_notifications():
+                    self.data = arr
+                    self._reset_axes(arr)
+                    if format_list is not None:
+                        self.formats = format_list
+                    for k, v in kwargs.items():
+                        setattr(self, k, v)
+            finally:
+                self._suspend = 0
+            self._refresh()  # raises WidgetValueError (a BitprismError) if no view can be built
+        except TraitError as exc:
+            raise refusal(exc) from None
+        if self.window is None:  # pragma: no cover - _refresh raised
             raise BitprismError(self.message or "no view could be built")
-        self._constructing = False
         self._layout_children()
 
     # ----- controls --------------------------------------------------------------------------
@@ -186,64 +206,49 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self.col_offset = 0
         self.selected = ()
 
-    # ----- validation: before construction ends, errors raise; afterwards they are shown ------
-    def _reject(self, name: str, exc: BaseException) -> Any:
-        if getattr(self, "_constructing", True):
-            raise BitprismError(str(exc)) from exc
-        self.message = message_for(exc)
-        return getattr(self, name)
+    # ----- validation: a refused value raises WidgetValueError and is shown as the message ----
+    def _reject(self, name: str, exc: BaseException) -> NoReturn:
+        self._refuse_value(exc)
 
     @validate("data")
     def _valid_data(self, proposal: Any) -> Any:
+        v = proposal["value"]
+        if v is self.data:  # traitlets validates the value again after a batch of changes
+            return v
         try:
-            return as_tensor(proposal["value"])
+            return as_tensor(v)
         except Exception as exc:
             return self._reject("data", exc)
 
     @validate("formats")
     def _valid_formats(self, proposal: Any) -> list[Any]:
         try:
-            out: list[Any] = []
-            seen = set()
-            for spec in proposal["value"]:
-                f = get_format(spec)
-                if f not in seen:
-                    seen.add(f)
-                    out.append(f.name if FORMATS.get(f.name) == f else f)
-            if not out:
-                raise BitprismError("a TensorPrism needs at least one format")
-            if len(out) > MAX_FORMATS:
-                raise BitprismError(f"at most {MAX_FORMATS} formats; got {len(out)}")
-            return out
+            return check_formats(proposal["value"], "TensorPrism")
         except Exception as exc:
-            return self._reject("formats", exc)  # type: ignore[no-any-return]
+            return self._reject("formats", exc)
 
     @validate("format_a", "format_b")
     def _valid_ab(self, proposal: Any) -> str:
         v = proposal["value"]
         name = proposal["trait"].name
-        if not v:
+        if isinstance(v, str) and not v:
             return ""
         try:
-            names = [f.name for f in self.format_objects]
-            if v in names:
-                return str(v)
+            fmts = self.format_objects
+            names = [f.name for f in fmts]
+            if not isinstance(v, (str, Format)):
+                raise BitprismError(
+                    f"{name} must be a format name or Format among the formats; got {v!r}")
+            if isinstance(v, str) and v in names:
+                return v
             f = get_format(v)
-            if f.name not in names:
+            if f not in fmts:
                 raise BitprismError(
                     f"{name}: {f.name!r} is not among the formats ({', '.join(names)}); "
                     "add it to formats first")
             return f.name
         except Exception as exc:
-            return self._reject(name, exc)  # type: ignore[no-any-return]
-
-    @validate("rounding", "overflow", "subnormals")
-    def _valid_option(self, proposal: Any) -> str:
-        name = proposal["trait"].name
-        try:
-            return check_option(name, proposal["value"])
-        except Exception as exc:
-            return self._reject(name, exc)  # type: ignore[no-any-return]
+            return self._reject(name, exc)
 
     @validate("view", "error_unit", "summary_scope", "summary_quantiles")
     def _valid_choice(self, proposal: Any) -> str:
@@ -253,7 +258,7 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         v = proposal["value"]
         if v in allowed:
             return str(v)
-        return self._reject(name, BitprismError(  # type: ignore[no-any-return]
+        return self._reject(name, BitprismError(
             f"{name} must be one of {', '.join(allowed)}; got {v!r}"))
 
     @validate("rows", "cols")
@@ -262,7 +267,7 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         if 1 <= v <= MAX_SIDE:
             return int(v)
         name = proposal["trait"].name
-        return self._reject(name, BitprismError(  # type: ignore[no-any-return]
+        return self._reject(name, BitprismError(
             f"{name} must be in 1..{MAX_SIDE}; got {v!r}"))
 
     @validate("row_offset", "col_offset")
@@ -275,7 +280,7 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         ax = self.row_axis if name == "row_offset" else self.col_axis
         n = 1 if ax is None else int(arr.shape[ax])
         if not 0 <= v < n:
-            return self._reject(name, BitprismError(  # type: ignore[no-any-return]
+            return self._reject(name, BitprismError(
                 f"{name.replace('_offset', '')} {v} is out of range for axis {ax} of size {n}"))
         return v
 
@@ -291,17 +296,20 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
                     f"selected needs one index per axis of {tuple(shape)}; got {v!r}")
             out = []
             for ax, (i, n) in enumerate(zip(v, shape)):
-                i = int(i)
+                i = check_index(i, "selected")
                 if not 0 <= i < n:
                     raise BitprismError(f"index {i} is out of range for axis {ax} with size {n}")
                 out.append(i)
             return tuple(out)
         except Exception as exc:
-            return self._reject("selected", exc)  # type: ignore[no-any-return]
+            return self._reject("selected", exc)
 
     @validate("fixed")
     def _valid_fixed(self, proposal: Any) -> tuple[int, ...]:
-        v = tuple(int(i) for i in proposal["value"])
+        try:
+            v = tuple(check_index(i, "fixed") for i in proposal["value"])
+        except Exception as exc:
+            return self._reject("fixed", exc)
         if self.data is None:
             return v
         shape = self.data.shape
@@ -313,15 +321,17 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
                     raise BitprismError(f"index {i} is out of range for axis {ax} with size {n}")
             return v
         except Exception as exc:
-            return self._reject("fixed", exc)  # type: ignore[no-any-return]
+            return self._reject("fixed", exc)
 
     # ----- reactions -------------------------------------------------------------------------
     @observe("data")
     def _on_data(self, change: Any) -> None:
         old, new = change["old"], change["new"]
-        if old is new:  # a refused tensor: the validator kept the old one
+        if old is new:
             return
         self._token += 1
+        if self._restoring:  # back to the last good view: its traits are restored too
+            return
         if old is not None and (old.ndim != new.ndim or old.shape != new.shape):
             with self._bulk():
                 self._reset_axes(new)
@@ -344,6 +354,8 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     @observe("row_axis", "col_axis")
     def _on_axes(self, change: Any) -> None:
         # choosing the other shown axis swaps the two; a new pair starts at the slice's corner
+        if self._restoring:
+            return
         with self._bulk():
             other = "col_axis" if change["name"] == "row_axis" else "row_axis"
             if getattr(self, other) == change["new"] and change["old"] is not None:
@@ -353,6 +365,8 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
 
     @observe("selected")
     def _on_selected(self, change: Any) -> None:
+        if self._restoring:
+            return
         idx = change["new"]
         if not idx:
             self._refresh()
@@ -410,9 +424,8 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             paint = paint_window(w, self.view, 0, len(casts) - 1, self.log_scale,
                                  self.error_unit, tips)
             summary = self._summary_for(arr, opts)
-        except Exception as exc:  # keep the last good view, say what went wrong
-            self.message = message_for(exc)
-            return
+        except Exception as exc:  # the last good view stays, and so do its traits
+            self._refuse_view(exc)
         self._tips_key, self._tips = tips_key, paint.tooltips
         self.set_trait("window", w)
         if summary is not None:
@@ -421,6 +434,7 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self._show_grid(w, paint)
         self._show_status(w, fa, fb, opts)
         self._show_prism()
+        self._remember_good_view()
         self._snapshot_changed()
 
     # ----- summary and counts ----------------------------------------------------------------
@@ -480,50 +494,42 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
                 return f"{word} ({fa.name}): none"
             return f"{word} {best:.3g} {unit} in {fa.name}: {n:,} cells"
         where = "" if kind in ("nan", "inf") else f" in {fa.name}"
-        return f"{word}{where}: {self.count(kind):,}"
+        f = None if kind in ("nan", "inf") else fa
+        count = self._stats.cheap_count(self._token, self.data, kind, f, opts)
+        if count is None:  # a whole pass over a large tensor waits for a press of ◀ or ▶
+            return f"{word}{where}: press ◀ ▶ to find"
+        return f"{word}{where}: {count:,}"
 
     def _show_prism(self) -> None:
         """The selected cell in the embedded Prism: its exact value, same formats/options."""
         if not self.selected:
             return
-        arr = self.data
-        opts = self.options
-        key = (self._token, self.selected, tuple(self.format_objects), opts)
-        if key == self._prism_key:
-            return
-        from .prism import Prism
-
-        raw = np.asarray(arr[self.selected])
-        fmts = list(self.formats)
-        try:
-            if self.prism is None:
-                self.prism = Prism("0", formats=fmts)
-                self.prism_box.children = [self.prism]
-            p = self.prism
-            in_fmt = None if raw.dtype.kind in "iub" else get_format(raw.dtype)
-            with p._bulk():
-                p.formats = fmts
-                p.rounding, p.overflow, p.subnormals, p.seed = (
-                    opts.rounding, opts.overflow, opts.subnormals, opts.seed)
-                p.via = ""
-                if in_fmt is not None and in_fmt in p.format_objects:
-                    bits = int(raw.reshape(1).view(np.dtype(f"uint{raw.dtype.itemsize * 8}"))[0])
-                    p.set_source(in_fmt, bits)  # bit for bit: NaN payloads, signed zeros
-                else:
-                    p.source_format = ""
-                    p.source_code = None
-                    p.value = int(raw) if in_fmt is None else float(raw.astype(np.float64))
-        except Exception as exc:
-            self.message = message_for(exc)
-            return
-        self._prism_key = key
+        key = (self._token, self.selected, tuple(self.format_objects), self.options)
+        if key != self._prism_key and show_selected(self):
+            self._prism_key = key
 
     # ----- callbacks ---------------------------------------------------------------------------
     @guarded
     def _on_control(self, name: str, change: Any) -> None:
         if self._suspend:
             return
-        setattr(self, name, change["new"])
+        try:
+            setattr(self, name, change["new"])
+        except BitprismError:
+            self._sync_controls()  # the control shows the setting in effect again
+            raise
+
+    def _sync_controls(self) -> None:
+        w = self.window
+        if w is None:
+            return
+        self._suspend += 1
+        try:
+            sync_controls(self, w, self._fmt("a"), self._fmt("b"))
+            if self.seed is None and self.seed_input.value != 0:
+                self.seed_input.value = 0
+        finally:
+            self._suspend -= 1
 
     @guarded
     def _on_slider(self, axis: int, change: Any) -> None:
@@ -614,6 +620,8 @@ class TensorPrism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             start = flat_index(w.index_of(0, 0), arr.shape) - (0 if backward else 1)
         hit = find(arr, kind, None if kind in ("nan", "inf") else fa, opts, start, backward,
                    self.error_unit, target)
+        if kind != "largest_error":
+            self.count(kind)  # asked for: the count of this kind shows from now on
         where = "" if kind in ("nan", "inf") else f" in {fa.name}"
         if hit is None:
             self._refresh_counts()

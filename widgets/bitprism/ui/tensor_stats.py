@@ -91,6 +91,17 @@ class TensorStats:
             self._count_cache[key] = count_kinds(arr, fmt, opts, (kind,))[kind]
         return self._count_cache[key]
 
+    def cheap_count(
+        self, token: int, arr: np.ndarray, kind: str, fmt: Format | None, opts: CastOptions
+    ) -> int | None:
+        """``count(...)`` when it is known or costs little (a tensor the summary would scan
+        without a progress bar); ``None`` for a whole pass over a larger tensor not yet made,
+        so that opening a window costs what the window and its summary cost."""
+        known = self._count_cache.get((token, kind, fmt, opts))
+        if known is not None or arr.size > _TUNING.progress_min:
+            return known
+        return self.count(token, arr, kind, fmt, opts)
+
     def largest(
         self, token: int, arr: np.ndarray, fmt: Format, opts: CastOptions, unit: str
     ) -> tuple[float | None, int]:

@@ -19,6 +19,9 @@ about a third of each cell's update message. What is relied on:
   message without ``buffer_paths`` as having none;
 * ``DOMWidget._dom_classes``, the synced list of CSS classes (``has_class``; ipywidgets has
   ``add_class`` and ``remove_class`` but no public test).
+
+And one traitlets internal (traitlets 5): ``HasTraits._trait_values`` and
+``HasTraits._notify_trait``, which ``IdentityTrait.set`` uses as ``TraitType.set`` does.
 """
 
 from __future__ import annotations
@@ -28,8 +31,9 @@ import uuid
 from typing import Any
 
 import ipywidgets as W
+from traitlets import Any as AnyTrait
 
-__all__ = ["has_class", "model_ref", "push_state", "short_model_id"]
+__all__ = ["IdentityTrait", "has_class", "model_ref", "push_state", "short_model_id"]
 
 # Model ids of shared styles: a random prefix per process, then a counter.
 _ID_PREFIX = uuid.uuid4().hex[:10]
@@ -80,3 +84,24 @@ def push_state(widget: W.Widget, changes: dict[str, Any]) -> None:
         values[k] = v
         state[k] = model_ref(v) if isinstance(v, W.Widget) else v
     send({"method": "update", "state": state})
+
+
+class IdentityTrait(AnyTrait):
+    """An ``Any`` trait whose change test is identity, for a tensor of any size.
+
+    ``TraitType.set`` tells a change from ``bool(old == new)``: for numpy arrays that compares
+    element by element, reading the whole tensor (all of a memmap's file) and allocating a
+    boolean array of its size before the comparison fails. Here a new object is a change and
+    the same object is not; validation and notification are traitlets' own. None is not a
+    tensor: it goes to the validator like any other value.
+    """
+
+    allow_none = False
+
+    def set(self, obj: Any, value: Any) -> None:
+        new_value = self._validate(obj, value)
+        values = obj._trait_values
+        old_value = values.get(self.name, self.default_value)
+        values[self.name] = new_value
+        if old_value is not new_value:
+            obj._notify_trait(self.name, old_value, new_value)

@@ -98,9 +98,11 @@ def _pieces(flat: np.ndarray, spec: ScanPlan) -> Iterator[tuple[int, np.ndarray]
     buf = np.empty(min(piece, flat.size), carrier)
     for at in range(0, flat.size, piece):
         x = buf[: min(piece, flat.size - at)]
-        np.copyto(x, flat[at : at + x.size], casting="unsafe")  # exact: the carrier holds it
+        with np.errstate(invalid="ignore"):  # exact: the carrier holds it; signaling NaNs quietly
+            np.copyto(x, flat[at : at + x.size], casting="unsafe")
         if spec.scale is not None:
-            with np.errstate(over="ignore"):  # beyond float64: Inf, as the cast sees it
+            # beyond float64: Inf, as the cast sees it; signaling NaNs stay NaN, quietly
+            with np.errstate(over="ignore", invalid="ignore"):
                 np.multiply(x, spec.scale, out=x)
         yield at, x.view(np.uint32 if spec.carrier32 else np.uint64)
 

@@ -89,24 +89,25 @@ def read_piece(xs: np.ndarray, at: int, plan: ScanPlan, scratch: Scratch) -> Pie
     wide = not plan.carrier32
     need64 = plan.full or plan.hooks
     x64: np.ndarray | None
-    if plan.scale is not None:
-        x64 = scratch.f["x64"][:k]
-        np.copyto(x64, xs, casting="unsafe")  # exact: every input dtype fits float64
-        np.multiply(x64, plan.scale, out=x64)
-        carrier = x64
-    elif wide:
-        if xs.dtype == np.float64:
-            x64 = xs
+    with np.errstate(invalid="ignore"):  # signaling NaNs convert quietly
+        if plan.scale is not None:
+            x64 = scratch.f["x64"][:k]
+            np.copyto(x64, xs, casting="unsafe")  # exact: every input dtype fits float64
+            np.multiply(x64, plan.scale, out=x64)
+            carrier = x64
+        elif wide:
+            if xs.dtype == np.float64:
+                x64 = xs
+            else:
+                x64 = scratch.f["x64"][:k]
+                np.copyto(x64, xs, casting="unsafe")
+            carrier = x64
         else:
-            x64 = scratch.f["x64"][:k]
-            np.copyto(x64, xs, casting="unsafe")
-        carrier = x64
-    else:
-        carrier = xs if xs.dtype == np.float32 else xs.astype(np.float32)
-        x64 = None
-        if need64:
-            x64 = scratch.f["x64"][:k]
-            np.copyto(x64, carrier)
+            carrier = xs if xs.dtype == np.float32 else xs.astype(np.float32)
+            x64 = None
+            if need64:
+                x64 = scratch.f["x64"][:k]
+                np.copyto(x64, carrier)
     src = SOURCE64 if wide else SOURCE32
     bits: np.ndarray = carrier.view(src.uint)
     a = np.bitwise_and(bits, src.uint(src.abs_mask))
