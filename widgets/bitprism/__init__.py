@@ -84,6 +84,7 @@ _LAZY: dict[str, str] = {
     "Prism": ".ui.prism",
     "TensorPrism": ".ui.tensor_prism",
     "open_case": ".ui.case_file",
+    "WidgetValueError": ".ui.refusal",
     "range_chart": ".plots",
 }
 
