@@ -10,6 +10,7 @@ area, never raised into the notebook.
 from __future__ import annotations
 
 import functools
+from functools import cached_property
 from dataclasses import dataclass
 from typing import Any
 
@@ -56,8 +57,10 @@ _FIELD_ROLES = ("sign", "exponent", "significand")
 @dataclass(frozen=True)
 class _View:
     """Everything a Prism shows for one state of its traits, built before any of it is shown:
-    a state whose view cannot be built is refused, so the widget never shows, saves or exports
-    one it could not (the text and static HTML are kept for display and export)."""
+    a state whose view cannot be built is refused, so the widget never shows one it could not.
+    The text and static HTML for display and export are built from the same comparison when
+    first asked (the render layer handles every value an ExactValue can hold; tests drive
+    hostile values through both)."""
 
     comparison: Comparison
     formats: tuple[Format, ...]
@@ -66,8 +69,14 @@ class _View:
     bits: tuple[str, ...]
     aligned: str
     evaluation: str
-    text: str
-    html: str
+
+    @cached_property
+    def text(self) -> str:
+        return self.comparison.to_text()
+
+    @cached_property
+    def html(self) -> str:
+        return self.comparison.to_html()
 
 
 class _Band:
@@ -385,8 +394,6 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             bits=tuple(row.bits() for row in c.rows),
             aligned=aligned_html(c) if self.aligned else "",
             evaluation=evaluation,
-            text=c.to_text(),
-            html=c.to_html(),
         )
 
     def _rebuild_bands(self, fmts: list[Format]) -> None:

@@ -3,19 +3,29 @@
 A counts-only scan (``scan(..., quantiles=False)``) needs, per block of data, how many IEEE bit
 patterns lie at or above each of a few magnitude thresholds ("cuts": every class of a monotone
 cast is a range of ``|x|``), whether +Inf and -Inf occur, the extreme finite values, and
-optionally the histogram of exponent fields. numpy needs one pass over memory per cut. The
-compiled kernel reads each cache-sized chunk from memory once, in a loop that takes the
-extreme finite values and writes a half-width *key* per element; the cuts that lie
-outside the chunk's finite range are settled without a compare, and the others are counted
-from the chunk in cache, eight at a time: on the keys (16-bit lanes for float32 data) when the
-cut sits on a key step or one above it, which holds for zero, Inf, NaN, powers of two and the
-thresholds of formats with few significand bits, and on the full patterns otherwise (the
-thresholds of float16 and bfloat16, say). A cut costs about one compare and one subtraction
-per 16 elements on keys, per 8 on full float32 patterns, so the cost grows with the number of
-formats. The kernel keeps each chunk's counts too, so that ``range_positions`` finds the first
-elements of each class by reading only the chunks that hold some. ``numba`` is optional (the
-``fast`` extra); without it, and with ``BITPRISM_NUMBA=0`` in the environment, the same
-numbers come from numpy. Tests hold the two equal on every kind of pattern.
+optionally the histogram of exponent fields. numpy needs one pass over memory per cut
+(``_numpy_counts``, the twin every test holds the kernel to). The compiled kernel reads each
+cache-sized chunk of ``CHUNK`` elements from memory once and then works on it in cache:
+
+* a first loop (``summary``) takes the chunk's extreme finite patterns and writes each
+  element's *key*: with s = ``KEY_SHIFT``, ``key(a) = floor(a / 2^s) + ceil(a / 2^s)`` of the
+  magnitude ``a`` fits the signed integer of half the pattern's width, is monotone, and steps
+  exactly at the multiples of 2^s and one above them. A cut ``c`` with ``c mod 2^s`` in {0, 1}
+  (zero, Inf, NaN, powers of two, the thresholds of formats with few significand bits, "just
+  above a tie" cuts) is then counted on keys, twice the lanes per vector compare;
+* cuts outside the chunk's finite range are *settled* from its counts of nonzero, Inf and NaN
+  elements, without a compare;
+* the first two cuts off the key steps (float16's and bfloat16's midpoints, say) that the
+  previous chunk had to count are counted inside the first loop (*slots*), where the reads from
+  memory hide the compares; any others get a loop of their own on the patterns;
+* every compare is ``x > c - 1`` on signed integers (magnitudes and keys fit them), one vector
+  compare on AVX2, which has neither an unsigned nor a ">=" one; every intermediate is cast back
+  to its width, since numba widens integer arithmetic to 64 bits, halving the vector lanes.
+
+The kernel keeps each chunk's counts too, so that ``range_positions`` finds the first elements
+of each class by reading only the chunks that hold some. ``numba`` is optional (the ``fast``
+extra); without it, with ``BITPRISM_NUMBA=0`` or ``ScanTuning(compiled=False)``, the same
+numbers come from numpy. What each device buys is measured in docs/benchmarks.md.
 """
 
 from __future__ import annotations
@@ -33,9 +43,6 @@ CHUNK = 4096  # elements per cache-resident chunk of the compiled kernel (counte
 # key(a) = floor(a / 2^s) + ceil(a / 2^s) of a magnitude pattern fits the signed integer of
 # half the pattern's width with these s (int16 for uint32 patterns, int32 for uint64)
 KEY_SHIFT = {np.dtype(np.uint32): 17, np.dtype(np.uint64): 33}
-_EXT_EMPTY_MAX = 0  # sentinel of an empty "max" slot (every real pattern in it is >= 1)
-# where a cut's count comes from in a chunk, when not from its own compare
-_FROM_NONZERO, _FROM_BIG, _FROM_NAN, _FROM_NONE, _FROM_SLOT0, _FROM_SLOT1 = -1, -2, -3, -4, -5, -6
 
 
 @dataclass(frozen=True)
@@ -94,32 +101,34 @@ def block_counts(
     cuts = np.ascontiguousarray(cuts, dtype)
     if cuts.size and (cuts[0] < 1 or np.any(cuts[1:] < cuts[:-1])):
         raise ValueError("cuts must be ascending magnitude patterns, each at least 1")
-    k = _kernels() if compiled else None
-    if k is not None and bits.size:
-        const = _constants(dtype, t)
-        out = np.zeros(cuts.size + 2, np.int64)
-        ext = np.array([_EXT_EMPTY_MAX, _EXT_EMPTY_MAX, const[5]], dtype)
-        n_exp = int(const[1] >> dtype.type(t)) + 1
-        exps = np.zeros((4, n_exp) if exponents else (4, 1), np.int64)
-        per_chunk = np.empty((-(-bits.size // CHUNK), cuts.size), np.int32)
-        k[dtype][0](bits, const, cuts, bool(exponents), out, ext, exps, per_chunk)
-        return _finish(out[:-2], out[-2:], ext, exps.sum(axis=0) if exponents else None, per_chunk)
-    return _numpy_counts(bits, t, cuts, exponents)
-
-
-def _finish(
-    at_least: np.ndarray, infs: np.ndarray, ext: np.ndarray, exps: np.ndarray | None, per_chunk: np.ndarray
-) -> BlockCounts:
-    empty_min = int(np.iinfo(ext.dtype).max)
-    p_max, n_max, m_min = (int(v) for v in ext)
+    kernels = _kernels() if compiled else None
+    if kernels is None or not bits.size:
+        return _numpy_counts(bits, t, cuts, exponents)
+    T = dtype.type
+    width = dtype.itemsize * 8
+    sign = 1 << (width - 1)
+    inf = ((1 << (width - 1 - t)) - 1) << t
+    s = KEY_SHIFT[dtype]
+    # per cut: whether it sits on a key step, and then the bound b of "key(a) - 1 > b"
+    on_key = ((cuts & T((1 << s) - 1)) <= 1) & (cuts < T(sign))
+    high, rem = (cuts >> T(s)).astype(np.int64), (cuts & T(1)).astype(np.int64)
+    key_below = np.where(on_key, 2 * high + rem - 2, 0).astype(np.int16 if width == 32 else np.int32)
+    at_least = np.zeros(cuts.size, np.int64)
+    per_chunk = np.empty((-(-bits.size // CHUNK), cuts.size), np.int32)
+    extremes = np.zeros(3, dtype)  # largest positive, largest negative, smallest magnitude
+    has_inf = np.zeros(2, np.bool_)  # +Inf, -Inf
+    exps = np.zeros((inf >> t) + 1 if exponents else 0, np.int64)
+    kernels[dtype][0](bits, T(sign - 1), T(inf), T(sign), T(t), cuts, on_key, key_below,
+                      at_least, per_chunk, extremes, has_inf, exps)
+    pos_max, neg_max, min_mag = (int(v) for v in extremes)
     return BlockCounts(
         at_least,
-        bool(infs[0]),
-        bool(infs[1]),
-        p_max if p_max != _EXT_EMPTY_MAX else None,
-        n_max if n_max != _EXT_EMPTY_MAX else None,
-        m_min if m_min != empty_min else None,
-        exps,
+        bool(has_inf[0]),
+        bool(has_inf[1]),
+        pos_max or None,  # 0: no positive finite nonzero value
+        neg_max or None,
+        min_mag if min_mag < inf else None,  # Inf: no finite nonzero value
+        exps if exponents else None,
         per_chunk,
     )
 
@@ -216,324 +225,136 @@ def range_positions(
     return [out[r, : found[r]].copy() for r in range(len(ranges))]
 
 
-# the compiled kernels that other kernels call, bound by ``with_kernels`` where they are made
-_first_pass: Callable[..., Any]
+# the compiled loops that ``count_chunks`` calls, bound by ``with_kernels`` where it is made
+_summary: Callable[..., Any]
 _count_keys: Callable[..., Any]
-_count_wide: Callable[..., Any]
+_count_above: Callable[..., Any]
 
 
 @built_once
 def _compile() -> dict[np.dtype, tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]]:
-    """Build the numba kernels, one pair per pattern dtype."""
+    """Build the numba kernels, one set per pattern dtype."""
     jit = make_jit()
-    return {np.dtype(t): _kernels_for(t, jit) for t in (np.uint32, np.uint64)}
+    return {np.dtype(t): (_count_kernel(t, jit),) + _position_kernels(t, jit) for t in (np.uint32, np.uint64)}
 
 
-def _group_counter(jit: Any, V: Any, masked: bool) -> Callable[..., Any]:
-    """A compiled loop that stores, for each cut ``k`` in ``live[:nl]``, how many elements
-    ``x`` of ``data`` (``x & mask`` when ``masked``) satisfy ``x > below[k]``, all compared
-    as the signed type ``V``, into ``local[k]``. Eight cuts per pass over the chunk (four when
-    no more are left); a short group repeats its last cut (the counts are assigned, not
-    added). The two loops are unrolled by hand on purpose: a pass of four costs about half a
-    pass of eight, so a short tail takes the cheaper one."""
-
-    @jit
-    def run(data, mask, below, live, nl, local):  # type: ignore[no-untyped-def]
-        m = data.size
-        g = 0
-        while g < nl:
-            width = 8 if nl - g > 4 else 4
-            for r in range(nl, g + width):
-                live[r] = live[nl - 1]
-            k0 = live[g]
-            k1 = live[g + 1]
-            k2 = live[g + 2]
-            k3 = live[g + 3]
-            b0 = V(below[k0])
-            b1 = V(below[k1])
-            b2 = V(below[k2])
-            b3 = V(below[k3])
-            n0 = V(0)
-            n1 = V(0)
-            n2 = V(0)
-            n3 = V(0)
-            if width == 4:
-                for i in range(m):
-                    a = V(V(data[i]) & mask) if masked else V(data[i])
-                    n0 = V(n0 + V(a > b0))
-                    n1 = V(n1 + V(a > b1))
-                    n2 = V(n2 + V(a > b2))
-                    n3 = V(n3 + V(a > b3))
-            else:
-                k4 = live[g + 4]
-                k5 = live[g + 5]
-                k6 = live[g + 6]
-                k7 = live[g + 7]
-                b4 = V(below[k4])
-                b5 = V(below[k5])
-                b6 = V(below[k6])
-                b7 = V(below[k7])
-                n4 = V(0)
-                n5 = V(0)
-                n6 = V(0)
-                n7 = V(0)
-                for i in range(m):
-                    a = V(V(data[i]) & mask) if masked else V(data[i])
-                    n0 = V(n0 + V(a > b0))
-                    n1 = V(n1 + V(a > b1))
-                    n2 = V(n2 + V(a > b2))
-                    n3 = V(n3 + V(a > b3))
-                    n4 = V(n4 + V(a > b4))
-                    n5 = V(n5 + V(a > b5))
-                    n6 = V(n6 + V(a > b6))
-                    n7 = V(n7 + V(a > b7))
-                local[k4] = n4
-                local[k5] = n5
-                local[k6] = n6
-                local[k7] = n7
-            local[k0] = n0
-            local[k1] = n1
-            local[k2] = n2
-            local[k3] = n3
-            g += width
-
-    return run
-
-
-def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., Any], Callable[..., Any]]:
-    """The kernels for patterns of numpy type ``T`` (unsigned).
-
-    Each chunk is read from memory once, by a first loop on the patterns (``_first_pass``); the
-    cuts are then counted from the chunk in cache. Most cuts are counted on *keys* half the
-    width of the pattern, twice as many per vector operation: with s = ``KEY_SHIFT``,
-    ``key(a) = floor(a / 2^s) + ceil(a / 2^s)`` is monotone and steps exactly at the multiples
-    of 2^s and one above them, so for a cut ``c`` whose remainder mod 2^s is 0 or 1,
-    ``a >= c`` holds exactly when ``key(a) >= 2 (c >> s) + (c mod 2^s)``. The first loop
-    stores ``key(a) - 1 = (a >> s) + ((a - 1) >> s)`` (arithmetic shifts, so -1 for zero),
-    whose ``a - 1`` also serves the smallest magnitude. Power-of-two bounds,
-    the midpoints of formats with few significand bits and "just above a tie" cuts all have
-    that form; the others (float16's midpoints, say) are compared on the full pattern, two of
-    them inside the first loop. Compares are on signed integers (magnitudes and keys fit them),
-    so ``x > c - 1`` is one AVX2 compare, whose all-ones result is subtracted from a counter
-    of the same width. Every intermediate is cast back to its type: numba widens integer
-    arithmetic to 64 bits, which would halve the lanes of each vector operation."""
-    S = np.int64 if T == np.uint64 else np.int32  # signed pattern (full-width compares)
-    K = np.int32 if T == np.uint64 else np.int16  # key (half-width compares)
-    shift = KEY_SHIFT[np.dtype(T)]
-    key_low = T((1 << shift) - 1)
-    key_shift = T(shift)
-    s_shift = S(shift)
+def _count_kernel(T: Any, jit: Any) -> Callable[..., Any]:
+    """The chunked counts for patterns of unsigned numpy type ``T`` (see the module
+    docstring)."""
+    S = np.int32 if T == np.uint32 else np.int64  # signed pattern
+    K = np.int16 if T == np.uint32 else np.int32  # key
+    shift = S(KEY_SHIFT[np.dtype(T)])
 
     @jit
-    def first_pass(blk, key, s_mask, off_p, w0, w1, with_wide):  # type: ignore[no-untyped-def]
-        """One loop over the chunk: the extreme finite patterns per sign (through an offset
-        that pushes every other pattern below the range; the unsigned maximum of the same
-        sums is the signed one of the sums with the sign bit flipped, which is the negative
-        values' offset), the smallest nonzero magnitude (an
-        unsigned minimum of a - 1: zero wraps to the top), the keys minus one, and
-        with ``with_wide`` the counts above two full-width bounds."""
-        lowest = T(T(s_mask) + T(1))  # the sign bit: the lowest signed value
-        mx_p = S(lowest)
-        mx_u = T(0)
-        mn = T(-1)
-        n0 = S(0)
-        n1 = S(0)
-        one = S(1)
-        if with_wide:
-            for i in range(blk.size):
-                v = S(blk[i])
-                a = S(v & s_mask)
-                u = S(v + off_p)
-                mx_p = max(mx_p, u)
-                mx_u = max(mx_u, T(u))
-                am1 = S(a - one)
-                mn = min(mn, T(am1))
-                n0 = S(n0 + S(a > w0))
-                n1 = S(n1 + S(a > w1))
-                key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
-        else:
-            for i in range(blk.size):
-                v = S(blk[i])
-                a = S(v & s_mask)
-                u = S(v + off_p)
-                mx_p = max(mx_p, u)
-                mx_u = max(mx_u, T(u))
-                am1 = S(a - one)
-                mn = min(mn, T(am1))
-                key[i] = K(S(a >> s_shift) + S(am1 >> s_shift))
-        return mx_p, S(mx_u ^ lowest), mn, n0, n1
+    def summary(blk, keys, mask, inf, sign, below0, below1):  # type: ignore[no-untyped-def]
+        """Largest positive and negative finite nonzero pattern (0: none), smallest finite
+        nonzero magnitude (Inf: none), the magnitudes above ``below0`` and ``below1`` (the two
+        slot cuts); writes each key less one, (a >> s) + ((a - 1) >> s), -1 for zero."""
+        zero = T(0)
+        minus_inf = T(inf | sign)
+        p_max = zero
+        n_max = zero
+        m_min = inf
+        n0 = np.int32(0)
+        n1 = np.int32(0)
+        for i in range(blk.size):
+            v = blk[i]
+            a = T(v & mask)
+            p_max = max(p_max, v if zero < v < inf else zero)
+            n_max = max(n_max, v if sign < v < minus_inf else zero)
+            m_min = min(m_min, a if zero < a < inf else inf)
+            n0 = np.int32(n0 + np.int32(S(a) > below0))
+            n1 = np.int32(n1 + np.int32(S(a) > below1))
+            keys[i] = K(S(S(a) >> shift) + S(S(T(a - T(1))) >> shift))
+        return p_max, n_max, m_min, n0, n1
 
-    def count_chunks(bits, const, cuts, want_exps, out, ext, exps, per_chunk):  # type: ignore[no-untyped-def]
-        mask = T(const[0])
-        inf = T(const[1])
-        sign = T(const[2])
-        one = T(const[4])
-        ones = T(const[5])
-        zero = T(const[6])
-        shift = T(const[7])
-        inf_m1 = T(inf - one)
-        inf_p1 = T(inf + one)
+    @jit
+    def count_keys(keys, below):  # type: ignore[no-untyped-def]
+        n = K(0)  # a chunk's count fits
+        for i in range(keys.size):
+            n = K(n + K(keys[i] > below))
+        return n
+
+    @jit
+    def count_above(blk, mask, below):  # type: ignore[no-untyped-def]
+        n = np.int32(0)
+        for i in range(blk.size):
+            n = np.int32(n + np.int32(S(S(blk[i]) & mask) > below))
+        return n
+
+    def count_chunks(  # type: ignore[no-untyped-def]
+        bits, mask, inf, sign, t, cuts, on_key, key_below, at_least, per_chunk, extremes, has_inf, exps
+    ):
+        key_nonzero = K(-1)  # the key bounds of the cuts 1, Inf and Inf + 1
+        key_big = K(S(S(inf) >> shift) * S(2) - S(2))
+        key_nan = K(key_big + K(1))
+        nan_cut = T(inf + T(1))
+        minus_inf = T(inf | sign)
         s_mask = S(mask)
-        s_inf = S(inf)
-        s_ninf = S(T(inf | sign))
-        # v + off_p keeps the order of positive finite patterns and sends everything else
-        # below off_p (signed); v + off_n does the same for negative ones (sign flipped)
-        off_p = S(T(sign - inf))
-        off_n = S(T(off_p + sign))
-        n = bits.size
-        kc = cuts.size
-        p_max = T(ext[0])
-        n_max = T(ext[1])
-        min_mag = T(ext[2])
-        # per cut: the bound of "a > below_w" (full width) and of "stored key > below_k"
-        # (key(a) >= 2 (c >> s) + rem, less one as stored, less one for ">"); cuts kc,
-        # kc + 1, kc + 2 are 1, +Inf and +Inf + 1 (nonzero, Inf or NaN, NaN): always counted
-        below_w = np.empty(kc, S)
-        below_k = np.empty(kc + 3, K)
-        exact = np.zeros(kc, np.bool_)
-        for k in range(kc):
-            c = cuts[k]
-            below_w[k] = S(T(c - one)) if c <= mask else s_mask
-            rem = T(c & key_low)
-            if rem <= one and c <= mask:
-                exact[k] = True
-                below_k[k] = K(S(S(S(c >> key_shift) << one) + S(rem)) - S(2))
-        below_k[kc] = K(-1)
-        below_k[kc + 1] = K(S(S(inf >> key_shift) << one) - S(2))
-        below_k[kc + 2] = K(S(S(inf >> key_shift) << one) - S(1))
-        live_k = np.empty(kc + 11, np.int64)
-        live_w = np.empty(kc + 8, np.int64)
-        source = np.empty(kc, np.int64)  # per cut: >= 0 counted there, < 0 a _FROM_* case
-        local = np.zeros(kc + 3, np.int64)
-        counts = np.zeros(kc, np.int64)
-        key = np.empty(CHUNK, K)
-        # the two full-width cuts of the first loop: those live in the previous chunk
-        # (at first, the lowest candidates)
-        slot0 = -1
-        slot1 = -1
-        for k in range(kc):
-            if not exact[k] and one < cuts[k] < inf:
-                if slot0 < 0:
-                    slot0 = k
-                elif slot1 < 0:
-                    slot1 = k
-        has_pos = out[kc] != 0
-        has_neg = out[kc + 1] != 0
-        for s in range(0, n, CHUNK):
-            e = min(n, s + CHUNK)
-            blk = bits[s:e]
-            m = e - s
-            w0 = below_w[slot0] if slot0 >= 0 else s_mask  # a > s_mask: never
-            w1 = below_w[slot1] if slot1 >= 0 else s_mask
-            mx_p, mx_n, mn, n0, n1 = _first_pass(blk, key, s_mask, off_p, w0, w1, slot0 >= 0)
-            # decoded: largest positive / negative finite nonzero pattern, smallest nonzero
-            # finite magnitude
-            cp_max = T(T(mx_p) - T(off_p)) if mx_p > off_p else zero
-            cn_max = T(T(mx_n) - T(off_n)) if mx_n > off_p else zero
-            c_min = T(mn + one) if mn < inf_m1 else ones
-            p_max = max(p_max, cp_max)
-            n_max = max(n_max, cn_max)
-            min_mag = min(min_mag, c_min)
-            # finite nonzero magnitudes of the chunk lie in [f_lo, f_hi] (f_lo > f_hi: none)
-            f_hi = T(max(cp_max, T(cn_max & mask)))
-            f_lo = c_min
-            # cuts settled without a compare: 1, +Inf and just above (always counted), as
-            # many as the cut 1 (<= f_lo: no magnitude in between) or as the cut +Inf
-            # (> f_hi), none above every magnitude; the others are counted on keys or on the
-            # full patterns
-            live_k[0] = kc
-            live_k[1] = kc + 1
-            live_k[2] = kc + 2
-            nk = 3
-            nw = 0
+        keys = np.empty(CHUNK, K)
+        slot0 = -1  # the cuts counted in the first loop: the first two counted on the
+        slot1 = -1  # patterns in the previous chunk
+        extremes[2] = inf
+        for s in range(0, bits.size, CHUNK):
+            blk = bits[s : s + CHUNK]  # a slice: blk[i] compiles to a plain load (no gather)
+            key = keys[: blk.size]
+            below0 = S(T(cuts[slot0] - T(1))) if slot0 >= 0 else s_mask  # > s_mask: never
+            below1 = S(T(cuts[slot1] - T(1))) if slot1 >= 0 else s_mask
+            p_max, n_max, m_min, n0, n1 = _summary(blk, key, mask, inf, sign, below0, below1)
+            extremes[0] = max(extremes[0], p_max)
+            extremes[1] = max(extremes[1], n_max)
+            extremes[2] = min(extremes[2], m_min)
+            nonzero = _count_keys(key, key_nonzero)
+            big = _count_keys(key, key_big)  # Inf or NaN
+            nan = _count_keys(key, key_nan)
+            if big > nan and not (has_inf[0] and has_inf[1]):  # Inf here, a sign unseen
+                for i in range(blk.size):
+                    has_inf[0] |= blk[i] == inf
+                    has_inf[1] |= blk[i] == minus_inf
+            # a cut at or below the smallest finite magnitude counts as many as the cut 1,
+            # one above the largest as many as the cut Inf; the others are counted
+            f_max = max(p_max, T(n_max & mask))
+            j = s // CHUNK
             next0 = -1
             next1 = -1
-            for k in range(kc):
+            for k in range(cuts.size):
                 c = cuts[k]
-                if c == one or (c <= f_lo and c <= inf):
-                    source[k] = _FROM_NONZERO
-                elif c == inf or (c > f_hi and c < inf):
-                    source[k] = _FROM_BIG
-                elif c == inf_p1:
-                    source[k] = _FROM_NAN
+                if c <= m_min:  # m_min is Inf when the chunk has no finite nonzero value
+                    got = nonzero
+                elif c <= inf and c > f_max:
+                    got = big
+                elif c == nan_cut:
+                    got = nan
                 elif c > mask:
-                    source[k] = _FROM_NONE
-                elif exact[k]:
-                    source[k] = k
-                    live_k[nk] = k
-                    nk += 1
+                    got = K(0)
+                elif on_key[k]:
+                    got = _count_keys(key, key_below[k])
                 else:
-                    if k == slot0:
-                        source[k] = _FROM_SLOT0
-                    elif k == slot1:
-                        source[k] = _FROM_SLOT1
-                    else:
-                        source[k] = k
-                        live_w[nw] = k
-                        nw += 1
                     if next0 < 0:
                         next0 = k
                     elif next1 < 0:
                         next1 = k
-            _count_keys(key[:m], K(-1), below_k, live_k, nk, local)
-            if nw:
-                _count_wide(blk, s_mask, below_w, live_w, nw, local)
-            nonzero = local[kc]
-            big = local[kc + 1]
-            nan = local[kc + 2]
-            if big > nan and not (has_pos and has_neg):
-                # which signs of Inf the chunk holds, until both have been seen
-                c_pos = S(0)
-                c_neg = S(0)
-                for i in range(m):
-                    v = S(blk[i])
-                    c_pos = S(c_pos + S(v == s_inf))
-                    c_neg = S(c_neg + S(v == s_ninf))
-                has_pos = has_pos or c_pos > 0
-                has_neg = has_neg or c_neg > 0
-            ci = s // CHUNK
-            for k in range(kc):
-                src = source[k]
-                got = 0
-                if src >= 0:
-                    got = local[src]
-                elif src == _FROM_NONZERO:
-                    got = nonzero
-                elif src == _FROM_BIG:
-                    got = big
-                elif src == _FROM_NAN:
-                    got = nan
-                elif src == _FROM_SLOT0:
-                    got = n0
-                elif src == _FROM_SLOT1:
-                    got = n1
-                counts[k] += got
-                per_chunk[ci, k] = got
+                    if k == slot0:
+                        got = n0
+                    elif k == slot1:
+                        got = n1
+                    else:
+                        got = _count_above(blk, s_mask, S(T(c - T(1))))
+                at_least[k] += got
+                per_chunk[j, k] = got
             slot0 = next0
             slot1 = next1
-            if want_exps:
-                i = 0
-                while i + 4 <= m:
-                    exps[0, (blk[i] & mask) >> shift] += 1
-                    exps[1, (blk[i + 1] & mask) >> shift] += 1
-                    exps[2, (blk[i + 2] & mask) >> shift] += 1
-                    exps[3, (blk[i + 3] & mask) >> shift] += 1
-                    i += 4
-                while i < m:
-                    exps[0, (blk[i] & mask) >> shift] += 1
-                    i += 1
-        for k in range(kc):
-            out[k] += counts[k]
-        out[kc] = has_pos
-        out[kc + 1] = has_neg
-        ext[0] = p_max
-        ext[1] = n_max
-        ext[2] = min_mag
+            if exps.size:
+                for i in range(blk.size):
+                    exps[T(blk[i] & mask) >> t] += 1
 
-    count_chunks = jit(with_kernels(
-        count_chunks, _first_pass=first_pass, _count_keys=_group_counter(jit, K, masked=False),
-        _count_wide=_group_counter(jit, S, masked=True),
+    return jit(with_kernels(  # type: ignore[no-any-return]
+        count_chunks, _summary=summary, _count_keys=count_keys, _count_above=count_above,
     ))
+
+
+def _position_kernels(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
+    """The searches for the first positions in a range, for patterns of unsigned type ``T``."""
 
     @jit
     def first_in_range(bits, key_mask, lo, width, out):  # type: ignore[no-untyped-def]
@@ -575,4 +396,4 @@ def _kernels_for(T: Any, jit: Any) -> tuple[Callable[..., Any], Callable[..., An
                             break
             found[r] = got
 
-    return count_chunks, first_in_range, first_in_ranges
+    return first_in_range, first_in_ranges
