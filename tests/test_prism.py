@@ -303,3 +303,19 @@ def test_seed_box_and_trait_refuse_what_a_case_cannot_hold() -> None:
     p.seed = 2**63 - 1
     p.seed = np.int64(5)  # numpy integers are integers
     assert p.seed == 5 and type(p.seed) is int and p.message == ""
+
+
+@pytest.mark.parametrize("bits", [0xFFC00123, 0x7F800001])
+def test_numpy_nan_value_keeps_its_bits(bits: int) -> None:
+    """A numpy NaN given as the value keeps its own bits in its own format (a copy: IEEE
+    754-2019 §5.5.1 keeps a signaling NaN signaling) and carries its payload into the other
+    formats exactly as the array path does (compared with bp.encode of the same value as an
+    array)."""
+    import bitprism as bp
+
+    v = np.uint32(bits).view(np.float32)
+    p = Prism(value=v, formats=["float32", "float16", "bfloat16"])
+    codes = {r.format.name: r.code for r in p.comparison.rows}
+    assert codes["float32"] == bits
+    for name in ("float16", "bfloat16"):
+        assert codes[name] == int(bp.encode(np.array([v]), name)[0]), name

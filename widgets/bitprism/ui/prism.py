@@ -21,6 +21,7 @@ from traitlets import TraitError, observe, validate
 from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError, ParseError
 from ..formats import FORMATS, Format, get_format
+from ..numerics.codes import native_code
 from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare_exact
 from ..numerics.decimal_text import exact_text
 from ..numerics.exact import ExactValue, as_exact
@@ -193,6 +194,9 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self._suspend = 0
         self._view: _View | None = None  # what is shown: the last view that could be built
         self._exact: tuple[str, ExactValue] | None = None  # the value trait's text, parsed
+        # the number the value came from, when it was one (a numpy scalar keeps its own bits
+        # in its own format: a signaling NaN stays signaling there), under the same text
+        self._number: tuple[str, Any] | None = None
         self._bands: list[_Band] = []
         self._band_formats: list[Format] = []
         self._bit_layout = W.Layout(width="22px", height="22px", padding="0", margin="0 1px")
@@ -311,7 +315,9 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
                     raise BitprismError(
                         f"value {v!r} is not a number: {message_for(exc)}") from exc
                 return v.strip()
-            return self._keep_exact(as_exact(v))
+            text = self._keep_exact(as_exact(v))
+            self._number = (text, v)
+            return text
         except Exception as exc:
             self._refuse_value(exc)
 
@@ -372,6 +378,10 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             if pin_fmt is not None:
                 pin_fmt.classify(self.source_code)  # the pattern fits the format
                 pinned = (pin_fmt, self.source_code)
+        own = None
+        if self._number is not None and self._number[0] == self.value:
+            number = self._number[1]
+            own = {f: code for f in fmts if (code := native_code(number, f)) is not None}
         c = compare_exact(
             self._read(self.value),
             self.value,
@@ -379,6 +389,7 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             options,
             get_format(self.via) if self.via else None,
             pinned,
+            own_codes=own,
         )
         evaluation = ""
         if self.expression.strip():
