@@ -13,7 +13,8 @@ and six formats in one run:
   alone (how far the cores run side by side, which decides what the second thread gains)
 * peak extra memory of the scan / input size (target <= 1.5x), by tracemalloc
 * with --memmap: a 2 GiB .npy memmapped from a temporary folder, counts-only and histogram
-  scans, their time and (in a second scan of each) peak extra memory (target < 512 MiB) —
+  scans, their time, the peak extra memory they allocate (a second scan of each, traced) and
+  the growth of the peak resident set of a fresh process scanning it (target < 512 MiB). It
   writes 2 GiB, so it is optional.
 
 The baseline, per format: ``y = x.astype(ml_dtypes.X).astype(np.float32)``, NaN / Inf /
@@ -28,6 +29,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import subprocess
 import sys
 import tempfile
 import threading
@@ -88,6 +90,28 @@ def baseline(x: np.ndarray) -> dict[str, tuple[int, ...]]:
         q = np.quantile(rel, [0.5, 0.99])
         out[name] = (nan, inf, overflow, underflow, float(q[0]), float(q[1]))
     return out
+
+
+def peak_rss_growth(path: str, mode) -> float:
+    """Growth of the peak resident set (MiB, VmHWM of proc(5)) of a fresh process that
+    memory-maps ``path`` and scans it: mapped pages count there, allocations or not."""
+    code = (
+        "import sys, numpy as np\n"
+        "from bitprism.tensors.scan import scan\n"
+        "def hwm():\n"
+        "    with open('/proc/self/status') as f:\n"
+        "        return next(int(l.split()[1]) for l in f if l.startswith('VmHWM'))\n"
+        f"formats = {list(FORMATS)!r}\n"
+        f"q = {mode!r}\n"
+        "scan(np.ones(1 << 16, np.float32), formats, progress=False, quantiles=q)  # compile\n"
+        "before = hwm()\n"
+        "scan(np.load(sys.argv[1], mmap_mode='r'), formats, progress=False, quantiles=q)\n"
+        "print((hwm() - before) / 1024)\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1] / "widgets"))
+    out = subprocess.run([sys.executable, "-c", code, path], capture_output=True, text=True,
+                         check=True, env=env)
+    return float(out.stdout.split()[-1])
 
 
 def timed(fn) -> float:
@@ -235,8 +259,10 @@ def main() -> None:
                 scan(big, FORMATS, progress=False, quantiles=mode)
                 took = time.perf_counter() - t
                 extra = peak_extra(lambda: scan(big, FORMATS, progress=False, quantiles=mode))
+                rss = peak_rss_growth(path, mode)
                 report.print(f"2 GiB memmap, quantiles={mode!r:11s}: {took:7.1f} s, "
-                             f"peak extra {extra / 2**20:6.1f} MiB (target < 512; a second scan, traced)")
+                             f"peak extra {extra / 2**20:6.1f} MiB allocated (a second scan, traced), "
+                             f"peak RSS +{rss:.0f} MiB (a fresh process; target < 512)")
             del big
 
     if args.write:
