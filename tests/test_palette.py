@@ -52,3 +52,54 @@ def test_fields_distinct_without_colour() -> None:
     assert "dashed" in tile_style("implicit")
     assert len({s.background for s in TILES.values()}) == len(TILES)
     assert {"nan", "inf", "subnormal", "zero"} <= set(BADGES)
+
+
+# ----- the outcome vocabulary (render/vocabulary.py) -----------------------------------------
+
+from bitprism.render.palette import outcome_badge, outcome_style, theme_css  # noqa: E402
+from bitprism.render.vocabulary import OUTCOMES  # noqa: E402
+
+THEMES = {"light": LIGHT_PAGE, "dark": DARK_PAGE}
+
+
+def _fill(key: str, theme: str) -> str:
+    colour = getattr(OUTCOMES[key], theme)
+    return colour.fill or THEMES[theme]  # no fill: the page itself
+
+
+@pytest.mark.parametrize("theme", sorted(THEMES))
+@pytest.mark.parametrize("key", sorted(OUTCOMES))
+def test_outcome_fills_stand_out_and_carry_readable_text(key: str, theme: str) -> None:
+    # WCAG 2.1 §1.4.11: a fill that carries meaning 3:1 from the page; §1.4.3: text 4.5:1
+    colour = getattr(OUTCOMES[key], theme)
+    if OUTCOMES[key].tier == 0:
+        assert colour.fill is None
+        return
+    assert contrast(colour.fill, THEMES[theme]) >= 3.0
+    assert contrast(colour.fill, colour.text) >= 4.5
+
+
+@pytest.mark.parametrize("theme", sorted(THEMES))
+def test_outcomes_of_different_tiers_sit_3_to_1_apart(theme: str) -> None:
+    # any two cells of a grid can be neighbours: fills of different tiers 3:1 apart
+    for a in OUTCOMES:
+        for b in OUTCOMES:
+            if OUTCOMES[a].tier < OUTCOMES[b].tier:
+                assert contrast(_fill(a, theme), _fill(b, theme)) >= 3.0, (a, b)
+
+
+def test_outcomes_of_one_tier_differ_by_words_and_marks() -> None:
+    # colour is never the only carrier (WCAG 2.1 §1.4.1): every outcome has its own mark
+    assert len({o.mark for o in OUTCOMES.values()}) == len(OUTCOMES)
+    assert len({o.name for o in OUTCOMES.values()}) == len(OUTCOMES)
+    assert OUTCOMES["underflow"].name == "underflow to zero"
+
+
+def test_dark_theme_switch_sets_every_filled_outcome() -> None:
+    css = theme_css()
+    for key, o in OUTCOMES.items():
+        if o.dark.fill is not None:
+            assert f"--bp-{key}-fill:{o.dark.fill}" in css
+            assert f"var(--bp-{key}-fill,{o.light.fill})" in outcome_style(key)
+    assert outcome_style("rounded") == ""
+    assert "&lt;" not in outcome_badge("overflow") and "↑ overflow" in outcome_badge("overflow")

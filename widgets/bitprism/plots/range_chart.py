@@ -2,7 +2,8 @@
 
 One row per format, sharing the exponent axis: the bars are the tensor's values by
 ``floor(log2|x|)`` (the same histogram in every row), and behind them the format's bands —
-underflow to zero (grey), subnormal (lilac), normal (teal tint), overflow (deep red). Each band
+underflow to zero, subnormal, normal (a teal tint), overflow, in the colours of
+``render.vocabulary``. Each band
 is labelled with the share of the tensor that lands in it. Band edges come from the scan's
 thresholds (``FormatScan.underflow_below``, ``normal_from``, ``overflow_from``), so they follow
 the rounding and subnormal options the scan used.
@@ -16,16 +17,19 @@ import math
 from typing import Any
 
 from ..errors import BitprismError
+from ..render.vocabulary import FIELDS, OUTCOMES
 
 __all__ = ["range_chart"]
 
+# the outcome colours of render.vocabulary (light theme: a figure has a white background); the
+# normal band is a tint of the trailing-significand teal (values there are exact or rounded)
 _BAND = {
-    "underflow": "#5f6368",  # zero grey
-    "subnormal": "#dccbf2",  # lilac
-    "normal": "#00707a",  # teal (drawn as a light tint)
-    "overflow": "#8b1a1a",  # deep red
+    "underflow": OUTCOMES["underflow"].light.fill,
+    "subnormal": OUTCOMES["subnormal"].light.fill,
+    "normal": FIELDS["significand"].colour.fill,
+    "overflow": OUTCOMES["overflow"].light.fill,
 }
-_BAR = "#6f51b4"  # ink-violet
+_BAR = FIELDS["sign"].colour.fill  # ink-violet
 
 
 def _log2(v: float | None) -> float | None:

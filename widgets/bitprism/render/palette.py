@@ -1,19 +1,23 @@
-"""bitprism's visual identity: field tiles, class badges, and the inline styles built from them.
+"""Inline styles built from the vocabulary's colours: field tiles, outcome fills and badges,
+and the style block that switches them for JupyterLab's dark theme.
 
 Field tiles: sign ink-violet, biased exponent amber, trailing significand teal; the implicit
 leading bit is a dashed outline in the page's own text colour; bits a cast drops are grey and
-struck through. Class badges: NaN magenta, Inf deep red, subnormal lilac, zero grey.
+struck through. Outcome colours and their tiers are in ``render.vocabulary``.
 
-Every tile and badge sets its own text colour on its own background, so the text contrast does
-not depend on the JupyterLab theme; it is at least 4.5:1 (WCAG 2.1 §1.4.3). Filled tiles also
-stand out from both theme backgrounds by at least 3:1 (WCAG 2.1 §1.4.11 non-text contrast), and
-colour is never the only cue: every field carries its name in a ``title`` tooltip and a caption
-row names the fields in words (``tests/test_palette.py`` computes the ratios).
+Outcome fills are written as ``var(--bp-<outcome>-fill, <light colour>)``: with no style block
+(a sanitized notebook, an offline page) the light colours apply; ``theme_css()`` is a
+``<style>`` element that sets the variables to the dark colours under JupyterLab's dark theme
+(``body[data-jp-theme-light="false"]``). Every element that uses them sits inside an element
+of class ``bitprism``.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from html import escape
+
+from .vocabulary import DARK_PAGE, FIELDS, LIGHT_PAGE, OUTCOMES
 
 __all__ = [
     "BADGES",
@@ -24,12 +28,11 @@ __all__ = [
     "Swatch",
     "badge_style",
     "button_colors",
+    "outcome_badge",
+    "outcome_style",
+    "theme_css",
     "tile_style",
 ]
-
-# Page backgrounds of JupyterLab's light and dark themes (--jp-layout-color0).
-LIGHT_PAGE = "#ffffff"
-DARK_PAGE = "#111111"
 
 
 @dataclass(frozen=True)
@@ -39,7 +42,7 @@ class Swatch:
     Attributes:
         role: what it marks ('sign', 'exponent', ..., 'nan', 'inf', ...).
         label: the words shown or put in the tooltip for it.
-        background: fill colour (hex).
+        background: fill colour (hex, light theme).
         text: text colour on that fill (hex).
         filled_tile: True for bit tiles that must stand out from the page (3:1 against both
             theme backgrounds); badges hold words, so only their text contrast applies.
@@ -53,25 +56,21 @@ class Swatch:
 
 
 TILES: dict[str, Swatch] = {
-    "sign": Swatch("sign", "sign", "#6f51b4", "#ffffff", True),  # ink-violet
-    "exponent": Swatch("exponent", "biased exponent", "#8f5d00", "#ffffff", True),  # amber
-    "significand": Swatch(
-        "significand", "trailing significand", "#00707a", "#ffffff", True
-    ),  # teal
-    "dropped": Swatch(
-        "dropped", "bit the cast drops", "#6b6b6b", "#ffffff", True
-    ),  # grey, struck through
+    key: Swatch(key, f.name, f.colour.fill, f.colour.text or "#ffffff", True)
+    for key, f in FIELDS.items()
+    if f.colour.fill is not None
 }
 
+# Badges: the outcomes with a fill, and the classes of an input value (zero and normal are
+# neutral: a class, not something a cast did).
 BADGES: dict[str, Swatch] = {
-    "nan": Swatch("nan", "NaN", "#b51c80", "#ffffff"),  # magenta
-    "inf": Swatch("inf", "Inf", "#8b1a1a", "#ffffff"),  # deep red
-    "overflow": Swatch("overflow", "overflow", "#b54708", "#ffffff"),  # burnt orange
-    "subnormal": Swatch("subnormal", "subnormal", "#dccbf2", "#3a2160"),  # lilac
-    "zero": Swatch("zero", "zero", "#5f6368", "#ffffff"),  # grey
-    "normal": Swatch("normal", "normal", "#e6e6e6", "#1f1f1f"),  # neutral
-    "flag": Swatch("flag", "event", "#fff1c7", "#4a3500"),  # overflow / underflow notes
+    key: Swatch(key, o.name, o.light.fill, o.light.text or "#000000")
+    for key, o in OUTCOMES.items()
+    if o.light.fill is not None
 }
+BADGES["zero"] = Swatch("zero", "zero", "#5f6368", "#ffffff")
+BADGES["normal"] = Swatch("normal", "normal", "#e6e6e6", "#1f1f1f")
+BADGES["flag"] = Swatch("flag", "event", "#fff1c7", "#4a3500")
 
 SWATCHES: tuple[Swatch, ...] = tuple(TILES.values()) + tuple(BADGES.values())
 
@@ -95,17 +94,50 @@ def tile_style(role: str, aligned: bool = False) -> str:
     return f"background:{s.background};color:{s.text}" + (f";{base}" if base else "") + extra
 
 
-def badge_style(role: str) -> str:
-    """Inline CSS for a class or event badge ('nan', 'inf', 'subnormal', 'zero', 'normal',
-    'flag')."""
-    s = BADGES[role]
+def outcome_style(key: str) -> str:
+    """Inline CSS colours of an outcome (empty for 'rounded', which has no fill), switched by
+    ``theme_css`` under the dark theme."""
+    o = OUTCOMES[key]
+    if o.light.fill is None:
+        return ""
     return (
-        f"background:{s.background};color:{s.text};padding:0 5px;border-radius:8px;"
-        "font-size:85%;white-space:nowrap"
+        f"background:var(--bp-{key}-fill,{o.light.fill});"
+        f"color:var(--bp-{key}-text,{o.light.text})"
     )
+
+
+_PILL = "padding:0 5px;border-radius:8px;font-size:85%;white-space:nowrap"
+
+
+def badge_style(role: str) -> str:
+    """Inline CSS for a badge: an outcome ('overflow', 'nan', ...; theme-switched) or an input
+    class ('zero', 'normal', 'flag')."""
+    if role in OUTCOMES:
+        colours = outcome_style(role) or "border:1px solid currentColor"
+        return f"{colours};{_PILL}"
+    s = BADGES[role]
+    return f"background:{s.background};color:{s.text};{_PILL}"
+
+
+def outcome_badge(key: str, text: str | None = None) -> str:
+    """A badge naming an outcome: its mark and words (or ``text``), escaped."""
+    o = OUTCOMES[key]
+    words = text if text is not None else f"{o.mark} {o.name}" if o.mark != o.name else o.name
+    return f'<span class="bitprism-{key}" title="{escape(o.meaning)}" style="{badge_style(key)}">{escape(words)}</span>'
 
 
 def button_colors(role: str) -> tuple[str, str]:
     """(fill, text) for a per-bit toggle button of a field, for the widget layer."""
     s = TILES[role]
     return s.background, s.text
+
+
+def theme_css() -> str:
+    """A ``<style>`` element setting the outcome colours for JupyterLab's dark theme."""
+    dark = ";".join(
+        f"--bp-{key}-fill:{o.dark.fill};--bp-{key}-text:{o.dark.text}"
+        for key, o in OUTCOMES.items()
+        if o.dark.fill is not None
+    )
+    return f'<style>body[data-jp-theme-light="false"] .bitprism{{{dark}}}</style>'
+

@@ -100,7 +100,7 @@ def advice_html(advice: Any) -> str:
         out += (
             "<table><tr><th>without scaling</th>"
             f"<th>multiplied by {html.escape(repr(advice.scale))}</th></tr>"
-            f"<tr><td style='vertical-align:top'><pre>{html.escape(str(advice.before))}</pre></td>"
-            f"<td style='vertical-align:top'><pre>{html.escape(str(advice.after))}</pre></td></tr></table>"
+            f"<tr><td style='vertical-align:top'>{advice.before.to_html()}</td>"
+            f"<td style='vertical-align:top'>{advice.after.to_html()}</td></tr></table>"
         )
     return out + "</div>"

@@ -1,30 +1,32 @@
 """Static HTML for a ``ScanResult``: escaped text, inline CSS, no scripts.
 
-Colours come from ``render.palette`` (bitprism's class badges: NaN magenta, Inf deep red,
-subnormal lilac, zero grey); overflow counts wear the Inf badge and underflow counts the zero
-badge. Badges carry their numbers and the column says the word, so colour is never the only
-cue."""
+Counts of an outcome wear that outcome's colour from ``render.vocabulary`` (overflow,
+underflow to zero, subnormal; the input's own NaN and Inf too); the column and the badge say
+the word, so colour is never the only cue. The box takes the page's own colours (JupyterLab's
+theme variables), so it reads in the light and the dark theme."""
 
 from __future__ import annotations
 
 from html import escape
 from typing import Any
 
-from .palette import badge_style
+from .palette import badge_style, theme_css
 from .scan_text import COLUMNS, block_nan_note, fmt_count, scan_header, scan_rows
 
 __all__ = ["scan_html"]
 
 # table column -> palette badge
-_ROLE = {"overflow": "overflow", "underflow": "zero", "subnormal": "subnormal", "nan": "nan",
+_ROLE = {"overflow": "overflow", "underflow": "underflow", "subnormal": "subnormal", "nan": "nan",
          "inf": "inf", "zero": "zero"}
 
 _BOX = (
     "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:12px;"
-    "color:#1f2328;background:#ffffff;border:1px solid #d0d7de;border-radius:6px;"
+    "color:var(--jp-ui-font-color0,#1f2328);background:var(--jp-layout-color0,#ffffff);"
+    "border:1px solid var(--jp-border-color1,#d0d7de);border-radius:6px;"
     "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
 )
-_TH = "text-align:right;padding:2px 8px;border-bottom:1px solid #d0d7de;font-weight:600"
+_TH = ("text-align:right;padding:2px 8px;border-bottom:1px solid var(--jp-border-color1,#d0d7de);"
+       "font-weight:600")
 _TD = "text-align:right;padding:2px 8px;white-space:nowrap"
 
 
@@ -43,7 +45,7 @@ def scan_html(result: Any) -> str:
     badges = " ".join(
         _badge(kind, f"{label} {fmt_count(n, result.size)}") for kind, label, n in head.classes if n
     )
-    parts = [f'<div class="bitprism-scan" style="{_BOX}">']
+    parts = [f'<div class="bitprism bitprism-scan" style="{_BOX}">{theme_css()}']
     parts.append(f'<div style="font-weight:600">{escape(head.title)}</div>')
     parts.append(f"<div>{escape(head.extrema)}</div>")
     if badges:

@@ -9,6 +9,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
+from .vocabulary import OUTCOMES, UNITS
+
 __all__ = [
     "COLUMNS",
     "ScanHeader",
@@ -23,16 +25,16 @@ __all__ = [
 
 COLUMNS = (
     "format",
-    "overflow",
-    "underflow",
-    "subnormal",
+    OUTCOMES["overflow"].name,
+    OUTCOMES["underflow"].name,
+    OUTCOMES["subnormal"].name,
     "exact",
     "max abs err",
     "rel p50",
     "rel p99",
     "rel max",
-    "ULP mean",
-    "ULP max",
+    f"{UNITS['ulp']} mean",
+    f"{UNITS['ulp']} max",
     "SQNR dB",
 )
 
