@@ -396,3 +396,39 @@ def open_offline(browser: Any, html_path: Path, shot: Path, timeout_ms: float) -
     page.goto(html_path.as_uri(), wait_until="load")
     page.screenshot(path=str(shot))
     return page
+
+
+# ----- theme and width -----------------------------------------------------------------------------
+THEME_JS = """
+async (dark) => {
+  const theme = dark ? 'JupyterLab Dark' : 'JupyterLab Light';
+  await window.jupyterapp.commands.execute('apputils:change-theme', { theme });
+  return true;
+}
+"""
+
+OUTPUT_WIDTH_JS = """
+() => {
+  const out = document.querySelector('.jp-OutputArea-output');
+  return out ? out.getBoundingClientRect().width : null;
+}
+"""
+
+
+def set_theme(page: Any, dark: bool, timeout_s: float = 30.0) -> None:
+    """Switch JupyterLab's theme (its own command) and wait until the page says it is on."""
+    page.evaluate(THEME_JS, dark)
+    want = "false" if dark else "true"
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        if page.evaluate("() => document.body.dataset.jpThemeLight") == want:
+            page.wait_for_timeout(300)  # the theme's stylesheet settles
+            return
+        page.wait_for_timeout(100)
+    raise AssertionError(f"JupyterLab did not switch to the {'dark' if dark else 'light'} theme")
+
+
+def output_width(page: Any) -> float | None:
+    """Width in CSS pixels of the first output area of the current notebook (None: none)."""
+    value = page.evaluate(OUTPUT_WIDTH_JS)
+    return None if value is None else float(value)
