@@ -219,7 +219,7 @@ BAD = [
     ("bitprism_case", "1", r"bitprism_case: expected an integer"),
     ("bitprism_case", True, r"bitprism_case: expected an integer, got true"),
     ("bitprism_case", 7, r"bitprism_case: written by a newer bitprism \(schema 7\); this "
-                         r"version reads up to 1; upgrade bitprism"),
+                         r"version reads up to 2; upgrade bitprism"),
 ]
 
 
@@ -342,7 +342,7 @@ def test_migration_from_schema_0(tmp_path: Path) -> None:
     assert q._case_note == "bf16 rounds 0.1 up"
     assert q.comparison.row("bfloat16").code == 0x3DCD  # 0.1 rounded up in bfloat16, ml_dtypes
     migrated = case_envelope.read_case(tmp_path / "old.json")
-    assert migrated["bitprism_case"] == 1 and migrated["versions"] == {"bitprism": "0.0.1"}
+    assert migrated["bitprism_case"] == 2 and migrated["versions"] == {"bitprism": "0.0.1"}
 
 
 def test_migration_then_validation_names_field(tmp_path: Path) -> None:
@@ -435,8 +435,11 @@ def test_bad_tensor_field_is_named(
 def test_tensor_case_selection_maps_into_the_saved_window(
     tmp_path: Path, tensor_case: dict[str, Any]
 ) -> None:
+    """Issue 18 item 5: a reopened case keeps the tensor's own indices and shape (it used to
+    renumber the saved window from 0: selection [2, 2] for the author's [1, 10, 20])."""
     back = open_case(_write(tmp_path, tensor_case))
-    assert back.selected == (2, 2) and back._origin == (1, 8, 18)  # (10 - 8, 20 - 18)
+    assert back.selected == (1, 10, 20) and back.window.index_of(0, 0) == (1, 8, 18)
+    assert back.window.shape == (3, 40, 50) and back.window.cell_of((1, 10, 20)) == (2, 2)
     assert back.format_a == "e3m3" and back.format_objects[1] == E3M3
     elsewhere = _edit(tensor_case, "state.selected", [2, 10, 20])  # another slice of axis 0
     assert open_case(_write(tmp_path, elsewhere)).selected == ()

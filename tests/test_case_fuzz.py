@@ -103,13 +103,14 @@ def tensors(draw: Any) -> np.ndarray:
 @SLOW
 @given(data=tensors(), fmts=format_lists, opts=options,
        view=st.sampled_from(["value", "class", "cast", "error", "compare"]),
-       log_scale=st.booleans(), unit=st.sampled_from(["ulp", "relative"]),
+       scale=st.sampled_from(["auto", "linear", "log", "quantile"]),
+       unit=st.sampled_from(["ulp", "relative"]),
        size=st.tuples(st.integers(1, 32), st.integers(1, 32)), pick=st.randoms(use_true_random=False))
 def test_tensor_prism_states_round_trip(tmp_path: Path, data: np.ndarray, fmts: list[Any],
-                                        opts: dict, view: str, log_scale: bool, unit: str,
+                                        opts: dict, view: str, scale: str, unit: str,
                                         size: tuple[int, int], pick: Any) -> None:
     try:
-        tp = TensorPrism(data, formats=fmts, view=view, log_scale=log_scale, error_unit=unit,
+        tp = TensorPrism(data, formats=fmts, view=view, value_scale=scale, error_unit=unit,
                          rows=size[0], cols=size[1], **opts)
     except BitprismError:
         assume(False)  # a state the widget refuses is never saved
@@ -128,14 +129,19 @@ def test_tensor_prism_states_round_trip(tmp_path: Path, data: np.ndarray, fmts: 
         assert np.array_equal(back.window.bits, w.bits)  # NaN payloads included
         assert back.window.raw.dtype == w.raw.dtype
         assert back.format_objects == tp.format_objects
-        for name in ("rounding", "overflow", "subnormals", "seed", "view", "log_scale",
-                     "error_unit", "summary_scope"):
+        for name in ("rounding", "overflow", "subnormals", "seed", "view", "value_scale",
+                     "error_unit", "summary_scope", "row_axis", "col_axis"):
             assert getattr(back, name) == getattr(tp, name), name
+        shown = (tp.row_axis, tp.col_axis)  # fixed: the indices of the axes not shown
+        assert [v for ax, v in enumerate(back.fixed) if ax not in shown] == [
+            v for ax, v in enumerate(tp.fixed) if ax not in shown]
         assert (back._fmt("a"), back._fmt("b")) == (tp._fmt("a"), tp._fmt("b"))
-        cell = w.cell_of(tp.selected)
-        assert back.selected == (cell or ())
-        if tp.rounding != "stochastic":  # its draws depend on where the window sits
-            for i, (c, d) in enumerate(zip(back.window.casts, w.casts)):
+        # the tensor's own indices and shape (issue 18 item 5)
+        assert back.window.shape == w.shape and back.window.index_of(0, 0) == w.index_of(0, 0)
+        assert back.selected == (tp.selected if w.cell_of(tp.selected) else ())
+        # stochastic draws too: they derive from where the window sits in the tensor
+        for i, (c, d) in enumerate(zip(back.window.casts, w.casts)):
+            if tp.seed is not None or tp.rounding != "stochastic":
                 assert np.array_equal(c.codes, d.codes), i
 
 

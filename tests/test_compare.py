@@ -290,17 +290,26 @@ def test_exact_text_parses_back(x: object) -> None:
 
 # ----- renderings -------------------------------------------------------------------------------
 def test_text_table_exact_at_fixed_width() -> None:
-    # stored values shown exactly when short: E4M3 0x1D = 13/128 = 0.1015625 (from library)
+    """Verdicts first, in words, then the table; stored values as the shortest decimal that
+    reads back and the exact one: E4M3 0x1D = 13/128 = 0.1015625 (from library: ml_dtypes)."""
+    import ml_dtypes
+
     c = compare("0.1", formats=("float8_e4m3fn", "float4_e2m1fn"))
+    e4m3 = float(np.array(0.1).astype(ml_dtypes.float8_e4m3fn))
+    assert Fraction(e4m3) == Fraction(13, 128)
     expected = "\n".join([
-        "input 0.1 = 0.1",
-        "roundTiesToEven, overflow standard, subnormals keep",
-        "format         class      value       ulp err      rel err  bits (sign exponent significand)  events",
-        "float8_e4m3fn  normal     0.1015625      +0.2     +0.01562  0 0011 101",
-        "float4_e2m1fn  zero       0.0            -0.2           -1  0 00 0                            underflow to zero",
+        "input 0.1 = 0.1 exactly (1/10)",
+        "roundTiesToEven · overflow standard · subnormals keep · one rounding",
+        "float8_e4m3fn: 0.1015625, rounded up by 0.0015625 (+0.2 ULP)",
+        "float4_e2m1fn: 0.1 → 0 (underflow to zero; smallest subnormal 0.5)",
+        "",
+        "format         class      shortest  exact       ULP err  relative err  "
+        "bits (sign biased-exponent trailing-significand)",
+        "float8_e4m3fn  normal     0.1       0.1015625      +0.2      +0.01562  0 0011 101",
+        "float4_e2m1fn  zero       0         =              -0.2            -1  0 00 0",
     ])
     assert c.to_text(width=120) == expected
-    assert c.to_text(width=40).splitlines()[2] == "format         class      value       u…"
+    assert c.to_text(width=40).splitlines()[5] == "format         class      shortest  exa…"
     assert all(len(line) <= 40 for line in c.to_text(width=40).splitlines())
 
 
@@ -311,7 +320,12 @@ def test_mimebundle_and_html_escaping() -> None:
     assert set(bundle) == {"text/plain", "text/html"}
     html = bundle["text/html"]
     assert "<b>&evil</b>" not in html and "&lt;b&gt;&amp;evil&lt;/b&gt;" in html
-    assert "<script" not in html and "http" not in html and "<style" not in html
+    # one <style> element only: the outcome colours of JupyterLab's dark theme, scoped to .bitprism
+    from bitprism.render.palette import theme_css
+
+    assert html.count("<style") == 1 and theme_css() in html
+    rest = html.replace(theme_css(), "")
+    assert "<script" not in rest and "http" not in rest and "<style" not in rest
     assert html.count('class="bitprism-band"') == 2
     assert "<b>&evil</b>" in bundle["text/plain"]
 
@@ -324,11 +338,21 @@ def test_html_size_for_eight_formats_with_float64() -> None:
         assert len(html.encode()) < 64 * 1024, value
 
 
-def test_aligned_view_marks_dropped_bits() -> None:
+def test_ruler_marks_dropped_bits() -> None:
+    """1 + 2^-8 + 2^-30 in bfloat16 (8 significant bits): 1.0078125, the input's bits 2^-8 and
+    2^-30 beyond its last kept bit 2^-7 are drawn struck through; float32 keeps 2^-8 and drops
+    2^-30 (from library: ml_dtypes bfloat16 and numpy float32 of the same sum)."""
+    import ml_dtypes
+
+    x = 1 + 2.0**-8 + 2.0**-30
+    assert float(np.array(x).astype(ml_dtypes.bfloat16)) == 1 + 2**-7
+    assert float(np.float32(x)) == 1 + 2**-8
     c = compare("1 + 2**-8 + 2**-30", formats=("float32", "bfloat16"))
     html = c.to_html(aligned=True)
-    assert "weight-aligned view" in html and "line-through" in html
-    assert "dropped by the cast" in html  # caption names the struck-through tiles in words
+    assert "bitprism-ruler-band" in html and "line-through" in html
+    assert "bits the cast drops" in html  # the legend names the struck-through bits in words
+    assert html.count("bit of the exact input this format drops") >= 2
+    assert "bitprism-ruler-band" not in c.to_html(aligned=False)
 
 
 def test_core_and_render_import_no_ui_libraries() -> None:
@@ -449,3 +473,114 @@ def test_sticky_bit_sum_renders_with_little_work() -> None:
     assert len(text) < 2000 and len(html) < 64 * 1024
     digits = sum(ch.isdigit() for ch in text)
     assert digits < 1500, digits
+
+
+# ----- issue 17: verdicts, the shortest/exact pair, -0, NaN payloads -----------------------------
+def _ulp_at(x: float, dtype: type) -> Fraction:
+    """ULP at x in ``dtype`` (from library: numpy.spacing for numpy types, ml_dtypes' finfo)."""
+    import ml_dtypes
+
+    info = ml_dtypes.finfo(dtype)
+    e = max(math.frexp(abs(x))[1] - 1, int(info.minexp))
+    return Fraction(2) ** (e - int(info.nmant))
+
+
+def test_verdicts_for_the_issue_examples() -> None:
+    """Each verdict's numbers are computed here independently (numpy float16, ml_dtypes casts,
+    Fractions), never pasted."""
+    import ml_dtypes
+
+    from bitprism.render.verdicts import verdict
+
+    c = compare("65504*2", ["float16", "bfloat16", "float8_e4m3fn", "float32"])
+    x = Fraction(65504 * 2)
+    with np.errstate(over="ignore"):
+        assert np.isinf(np.float16(65504 * 2))  # numpy: binary16 overflows to +Inf
+    f16_max = int(np.finfo(np.float16).max)
+    key, words = verdict(c, c.row("float16"))
+    assert key == "overflow" and words == f"{x} → +Inf (overflow; largest finite {f16_max})"
+    bf = Fraction(float(np.array(65504 * 2.0).astype(ml_dtypes.bfloat16)))
+    up = bf - x
+    ulps = up / _ulp_at(float(bf), ml_dtypes.bfloat16)
+    key, words = verdict(c, c.row("bfloat16"))
+    assert key == "rounded"
+    assert words == f"{bf}, rounded up by {up} (+{float(ulps):g} ULP)"  # 131072, 64, 0.0625
+    assert np.isnan(np.array(65504 * 2.0).astype(ml_dtypes.float8_e4m3fn).astype(float))
+    e4_max = int(ml_dtypes.finfo(ml_dtypes.float8_e4m3fn).max)
+    key, words = verdict(c, c.row("float8_e4m3fn"))
+    assert key == "overflow"
+    assert words == f"{x} → NaN (overflow; no Inf in this format; largest finite {e4_max})"
+    assert verdict(c, c.row("float32")) == ("exact", f"{x}, exact")
+
+    c = compare("448", ["float8_e4m3fn"])  # E4M3FN's largest finite (ml_dtypes finfo)
+    assert verdict(c, c.rows[0]) == ("exact", f"{e4_max}, exact")
+    c = compare("2**-24", ["float16"])  # binary16's smallest subnormal (numpy finfo)
+    assert Fraction(float(np.finfo(np.float16).smallest_subnormal)) == Fraction(1, 2**24)
+    assert verdict(c, c.rows[0]) == ("subnormal", "2^-24, exact; subnormal: 1 significant bit")
+    c = compare("1e-8", ["float16"])
+    assert np.float16(1e-8) == 0  # numpy: below half the smallest subnormal, rounds to 0
+    key, words = verdict(c, c.rows[0])
+    assert key == "underflow" and words.startswith("1e-08 → 0 (underflow to zero;")
+
+
+def test_stored_value_is_the_shortest_and_the_exact_decimal() -> None:
+    """float32's 0x3dcccccd: shortest text 0.1 (repr of numpy's float32), exact value
+    0.100000001490116119384765625 (decimal.Decimal of the same float): never a shortened value
+    labelled exact."""
+    from bitprism.render.verdicts import stored_text
+
+    f = np.float32(0.1)
+    exact = str(Decimal(float(f)))
+    c = compare("0.1", ["float32", "float64"])
+    assert stored_text(c.row("float32")) == f"shortest {repr(f.item())[:3]} · exact {exact}"
+    assert "shortest <b" in c.to_html() and exact in c.to_html() and exact in c.to_text()
+    long = str(Decimal(0.1))  # float64's exact 0.1: 55 significant digits
+    text = stored_text(c.row("float64"))
+    assert long not in text and "(55 digits)" in text and "…" in text
+
+
+def test_negative_zero_is_minus_zero_everywhere() -> None:
+    c = compare("-0", ["float32", "float16", "float8_e4m3fnuz"])
+    text, html = c.to_text(), c.to_html()
+    assert "float32:         -0, exact" in text and "0.0" not in text
+    assert "<b>-0</b>" in html
+    from bitprism.render.verdicts import verdict
+
+    # E4M3FNUZ has no -0 (its pattern is the NaN): -0 becomes +0 (from library: ml_dtypes)
+    import ml_dtypes
+
+    z = np.array(-0.0).astype(ml_dtypes.float8_e4m3fnuz)
+    assert not np.signbit(z.astype(float))
+    assert verdict(c, c.row("float8_e4m3fnuz"))[1] == "-0 → 0 (no -0 in this format)"
+
+
+def test_nan_payload_carried_and_labelled() -> None:
+    """A float16 signaling NaN 0x7d01 as the source: float32 and bfloat16 get what bp.encode of
+    the same float16 array gives (quieted, top payload bits kept; IEEE 754-2019 §6.2.3), and
+    the verdicts say quiet or signaling, the payload, and kept/quieted/cut/lost."""
+    import bitprism as bp
+    from bitprism.render.verdicts import payload_fate, verdict
+
+    src = np.array([0x7D01], dtype=np.uint16).view(np.float16)
+    c = compare("0", ["float16", "float32", "bfloat16", "float8_e4m3fn"],
+                pinned=("float16", 0x7D01))
+    c = compare_exact_of_source(c)
+    for name in ("float32", "bfloat16"):
+        assert c.row(name).code == int(bp.encode(src, name)[0]), name
+    assert verdict(c, c.row("float16"))[1] == "signaling NaN, payload 0x101"
+    assert payload_fate(c, c.row("float16")) is None  # the source itself
+    assert verdict(c, c.row("float32"))[1] == (
+        f"quiet NaN, payload {c.row('float32').fields.payload:#x} (quieted, payload kept)")
+    assert payload_fate(c, c.row("bfloat16")).word == "cut"  # 9 payload bits, room for 6
+    assert payload_fate(c, c.row("float8_e4m3fn")).word == "lost"  # one NaN in E4M3FN
+    assert "signaling NaN, payload 0x101" in c.to_text()
+
+
+def compare_exact_of_source(c):
+    """The comparison a Prism makes when a band's NaN pattern is the source: every row from
+    the pinned row's exact value (its payload included)."""
+    from bitprism.numerics.compare import compare_exact
+
+    pin = c.rows[0]
+    return compare_exact(pin.stored, "nan", [r.format for r in c.rows], c.options,
+                         pinned=(pin.format, pin.code))

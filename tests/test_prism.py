@@ -37,11 +37,11 @@ def test_builds_bands_and_css_classes() -> None:
 
 def test_new_value_changes_bands() -> None:
     p = Prism("0.1", formats=FMTS)
-    before = _band(p, "bfloat16").html.value
+    before = _band(p, "bfloat16").detail.value
     p.value_input.value = "1/3"  # Enter in the text box (continuous_update=False)
     # bfloat16 0x3EAB = 171/512 = roundTiesToEven(1/3) (from library: ml_dtypes 0.7 bfloat16)
     assert p.value == "1/3" and p.comparison.row("bfloat16").code == 0x3EAB
-    assert _band(p, "bfloat16").html.value != before
+    assert _band(p, "bfloat16").detail.value != before
     p.value = np.float32(0.1)  # numbers are stored as exact text
     assert p.value == "0.100000001490116119384765625"
     assert p.comparison.row("float32").code == 0x3DCCCCCD
@@ -73,18 +73,29 @@ def test_bit_flip_makes_band_the_source() -> None:
 
 
 def test_neighbour_and_jump_buttons() -> None:
+    """One toolbar acts on the selected band (a click on the band's name selects it)."""
     p = Prism("1", formats=FMTS)
-    _band(p, "bfloat16").up.click()
+    assert p.selected_row().format.name == "float32"  # the first band until one is chosen
+    _band(p, "bfloat16").name.click()
+    assert p.selected == "bfloat16" and p.bits_format.value == "bfloat16"
+    assert "bitprism-selected" in _band(p, "bfloat16").box._dom_classes
+    assert "bitprism-selected" not in _band(p, "float32").box._dom_classes
+    p.toolbar.up.click()
     assert p.comparison.row("bfloat16").stored.value == 1 + Fraction(1, 128)
-    _band(p, "bfloat16").down.click()
-    _band(p, "bfloat16").down.click()
+    p.toolbar.down.click()
+    p.toolbar.down.click()
     assert p.comparison.row("bfloat16").stored.value == 1 - Fraction(1, 256)
-    _band(p, "float16").largest.click()
-    assert p.comparison.row("float16").shortest == "65500.0"
-    _band(p, "float16").subnormal.click()
+    _band(p, "float16").name.click()
+    p.toolbar.largest.click()
+    assert p.comparison.row("float16").stored.value == 65504  # binary16 max (IEEE 754 §3.6)
+    p.toolbar.subnormal.click()
     assert p.comparison.row("float16").stored.value == Fraction(1, 2**24)
-    _band(p, "float8_e4m3fn").normal.click()
+    _band(p, "float8_e4m3fn").name.click()
+    p.toolbar.normal.click()
     assert p.comparison.row("float8_e4m3fn").stored.value == Fraction(1, 64)
+    assert [b.description for b in p.toolbar.buttons.values()] == [
+        "next down", "next up", "largest finite", "smallest normal", "smallest subnormal",
+        "remove"]
 
 
 def test_option_dropdowns_change_codes() -> None:
@@ -99,7 +110,9 @@ def test_option_dropdowns_change_codes() -> None:
     p.rounding = "roundTiesToEven"
     # double rounding (from library: ml_dtypes 0.7): 1 + 2^-8 + 2^-30 -> bfloat16 directly
     # 1.0078125, through float32 first 1.0
-    p.via_menu.value = "float32"
+    assert [label for label, _ in p.path_menu.options] == ["one rounding",
+                                                           "through float32 first"]
+    p.path_menu.value = "float32"
     assert p.via == "float32" and p.comparison.row("bfloat16").stored.value == 1
     p.subnormals_menu.value = "flush"
     p.value = "2**-20"
@@ -113,15 +126,17 @@ def test_formats_add_remove_and_custom() -> None:
     custom = Format("e3m3", 3, 3, specials="finite")
     p.formats = [*p.formats, custom]
     assert p.comparison.row(custom).format is custom and len(p._bands) == 3
-    _band(p, "e3m3").remove.click()
-    assert len(p._bands) == 2
+    _band(p, "e3m3").name.click()
+    p.toolbar.remove.click()
+    assert len(p._bands) == 2 and p.selected_row().format.name == "float16"
 
 
 def test_expression_row_shows_absorption() -> None:
     p = Prism("0.1", formats=["float32", "float16"])
     p.expression_input.value = "2048 + 1"
     html = p.evaluation_html.value
-    assert "absorbed" in html and "2049.0" in html and "2048.0" in html
+    # evaluate()'s own words for the cause: 2048 + 1 = 2049 -> 2048 in float16 (11 bits)
+    assert "absorbed addend" in html and "2049" in html and "2048" in html
     p.expression_input.value = "2048 +"
     assert "column" in p.message
 
@@ -134,7 +149,7 @@ def test_callback_errors_reach_message_area() -> None:
     p.bits_input.value = "0xZZ"
     assert "column" in p.message
     p.rounding_menu.value = "stochastic"
-    p.seed_input.value = 3
+    p.seed_input.value = "3"
     assert p.seed == 3 and p.message == ""
 
 
@@ -223,14 +238,14 @@ def test_view_that_cannot_be_built_keeps_last_view_and_value(
     from bitprism.errors import BitprismError
     from bitprism.ui.case_file import open_case
 
-    real = prism_module.band_html
+    real = prism_module.band_detail_html
 
-    def fails_for_1e400(c, row, tiles=True):  # a renderer failing as item 7's did
+    def fails_for_1e400(c, row, ruler, neighbours=False):  # a renderer failing as item 7's did
         if c.text == "1e400":
             raise OverflowError("integer division result too large for a float")
-        return real(c, row, tiles=tiles)
+        return real(c, row, ruler, neighbours)
 
-    monkeypatch.setattr(prism_module, "band_html", fails_for_1e400)
+    monkeypatch.setattr(prism_module, "band_detail_html", fails_for_1e400)
     p = Prism("1", formats=["float32", "float4_e2m1fn"])
     kept = p.comparison
     with pytest.raises(BitprismError, match="could not be built"):
@@ -293,9 +308,11 @@ def test_seed_box_and_trait_refuse_what_a_case_cannot_hold() -> None:
     from bitprism.errors import BitprismError
 
     p = Prism("0.1", formats=["bfloat16"], rounding="stochastic", seed=7)
-    for typed in (-1, 2**63):
+    for typed in ("-1", str(2**63)):
         p.seed_input.value = typed
-        assert p.seed == 7 and p.seed_input.value == 7 and "seed must be in 0.." in p.message
+        assert p.seed == 7 and p.seed_input.value == "7" and "seed must be in 0.." in p.message
+    p.seed_input.value = "x"
+    assert p.seed == 7 and p.seed_input.value == "7" and "seed must be none or" in p.message
     for bad in (-1, 2**63, True, 2.5, "7"):
         with pytest.raises(BitprismError):
             p.seed = bad
@@ -319,3 +336,146 @@ def test_numpy_nan_value_keeps_its_bits(bits: int) -> None:
     assert codes["float32"] == bits
     for name in ("float16", "bfloat16"):
         assert codes[name] == int(bp.encode(np.array([v]), name)[0]), name
+
+
+def test_compact_and_caption() -> None:
+    """Issue 17/18: ``compact`` leaves the bands (verdicts, raw bits) and drops the input
+    rows, option controls and add-format menu; ``caption`` is a line above the bands."""
+    p = Prism("0.1", formats=["float32", "float16"], compact=True, caption="x[3, 4] float32")
+    shown = set(p.children)
+    assert p.bands_box in shown and p.caption_html in shown
+    for control in (p.value_input, p.add_format_menu, p.rounding_menu, p.overflow_menu,
+                    p.expression_input):
+        assert all(control not in getattr(c, "children", ()) and control is not c
+                   for c in p.children)
+    assert "x[3, 4] float32" in p.caption_html.value
+    p.caption = "<b>"  # plain text: escaped
+    assert "&lt;b&gt;" in p.caption_html.value
+    p.compact = False
+    assert any(p.value_input in getattr(c, "children", ()) for c in p.children)
+    p.compact = True
+    assert p.bands_box in p.children and p.comparison.row("float16").code == 0x2E66
+    p.caption = ""
+    assert p.caption_html.value == ""
+
+
+# ----- issue 17: the ruler view, verdicts, one toolbar, closed widgets ---------------------------
+def _live_widgets() -> int:
+    import warnings
+
+    import ipywidgets
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)  # the registry the issue counts
+        return len(ipywidgets.Widget.widgets)
+
+
+def test_add_remove_cycles_leave_no_widgets_behind() -> None:
+    """Replaced band widgets are closed: the live-widget count after 20 add/remove cycles
+    equals the count after one (it grew by a band's worth, ~359 widgets, per cycle before)."""
+    p = Prism("0.1", formats=["float32", "float16"])
+
+    def cycle() -> None:
+        p.add_format_menu.value = "float64"
+        assert len(p._bands) == 3 and len(p._bands[-1].bits) == 64
+        p.select("float64")
+        p.toolbar.remove.click()
+        assert len(p._bands) == 2
+
+    cycle()
+    after_one = _live_widgets()
+    for _ in range(19):
+        cycle()
+    assert _live_widgets() == after_one
+    p.value = "1/3"  # an ordinary update makes no widgets either
+    assert _live_widgets() == after_one
+
+
+def test_bands_show_verdict_ruler_and_raw_bits() -> None:
+    p = Prism("65504*2", formats=["float32", "bfloat16", "float16", "float8_e4m3fn"])
+    f16 = _band(p, "float16")
+    assert "131008 → +Inf (overflow; largest finite 65504)" in f16.verdict.value
+    assert "bitprism-overflow" in f16.verdict.value  # the outcome's class and colour
+    assert "bitprism-ruler-band" in f16.detail.value and "0x7c00" in f16.fields.value
+    assert "no Inf in this format" in _band(p, "float8_e4m3fn").verdict.value
+    assert "131072, rounded up by 64 (+0.0625 ULP)" in _band(p, "bfloat16").verdict.value
+    assert "bitprism-ruler-scale" in p.header_html.value and "131008 exactly" in p.header_html.value
+    p.aligned_box.value = False  # the ruler can be switched off; verdicts and bits stay
+    assert "bitprism-ruler-band" not in f16.detail.value and "+Inf" in f16.verdict.value
+
+
+def test_negative_zero_in_the_prism() -> None:
+    p = Prism("-0", formats=["float32", "float16"])
+    band = _band(p, "float16")
+    assert "-0, exact" in band.verdict.value and "<b>-0</b>" in band.detail.value
+    assert "".join(b.description for b in band.bits) == "1" + "0" * 15  # sign bit set
+    assert "-0" in p.to_html() and "-0, exact" in str(p.comparison)
+
+
+def test_nan_source_carries_its_payload_into_the_other_bands() -> None:
+    """Typing the float16 signaling NaN 0x7d01 into the bits box: float32 gets what bp.encode
+    of the same float16 value gives (0x7fe02000: quieted, payload kept), and says so."""
+    import bitprism as bp
+
+    p = Prism("1", formats=["float16", "float32", "bfloat16", "float8_e4m3fn"])
+    p.select("float16")
+    p.bits_input.value = "0x7d01"
+    src = np.array([0x7D01], dtype=np.uint16).view(np.float16)
+    assert p.comparison.row("float32").code == int(bp.encode(src, "float32")[0])
+    assert p.comparison.row("bfloat16").code == int(bp.encode(src, "bfloat16")[0])
+    assert "signaling NaN, payload 0x101" in _band(p, "float16").verdict.value
+    assert "(quieted, payload kept)" in _band(p, "float32").verdict.value
+    assert "payload cut to its top 6 bits" in _band(p, "bfloat16").verdict.value
+    assert "payload lost" in _band(p, "float8_e4m3fn").verdict.value
+
+
+def test_bits_of_follows_the_selected_band_and_is_never_empty() -> None:
+    """Typing bits with nothing chosen in "bits of" gave "format must be a name... got None";
+    it now defaults to the selected band (the first band until one is chosen)."""
+    p = Prism("1", formats=["float16", "bfloat16"])
+    assert p.bits_format.value == "float16"
+    p.bits_input.value = "0x3c01"
+    assert p.message == "" and p.comparison.row("float16").code == 0x3C01
+    _band(p, "bfloat16").name.click()
+    assert p.bits_format.value == "bfloat16"
+    p.bits_format.value = "float16"  # choosing "bits of" selects that band too
+    assert p.selected == "float16"
+
+
+def test_seed_box_reads_none() -> None:
+    p = Prism("0.1", formats=["bfloat16"])
+    assert p.seed is None and p.seed_input.value == "none"
+    p.seed = 5
+    assert p.seed_input.value == "5"
+    p.seed_input.value = "none"
+    assert p.seed is None and p.message == ""
+
+
+def test_compute_box_names_causes_per_format_and_step() -> None:
+    """The compute box says why each step was not exact, in evaluate()'s words: 2048 + 1 is
+    absorbed in float16 (11-bit significand) and 65504*2 overflows there (numpy float16)."""
+    from bitprism.numerics.evaluate import evaluate
+
+    with np.errstate(over="ignore"):
+        assert np.float16(2048) + np.float16(1) == 2048 and np.isinf(np.float16(65504) * 2)
+    p = Prism("1", formats=["float32", "float16"])
+    p.expression_input.value = "2048 + 1 + 65504*2"
+    html = p.evaluation_html.value
+    assert "2048 + 1 = 2049 -&gt; 2048: absorbed addend" in html
+    assert "65504*2 = 131008 -&gt; inf: overflow" in html
+    text = evaluate("2048 + 1 + 65504*2", "float16").to_text()
+    assert "absorbed addend" in text and "overflow" in text
+
+
+def test_old_case_files_open_and_new_fields_round_trip(tmp_path) -> None:
+    from bitprism.ui.case_file import open_case
+
+    p = Prism("0.1", formats=["float32", "float16"], caption="x[1, 2]")
+    p.select("float16")
+    q = open_case(p.save_case(tmp_path / "c.json"))
+    assert q.selected == "float16" and q.caption == "x[1, 2]" and not q.compact
+    state = p._case_state()
+    for key in ("selected", "compact", "caption"):  # a file written before these existed
+        state.pop(key)
+    old = Prism._from_case_state(state)
+    assert old.selected_row().format.name == "float32" and old.caption == ""

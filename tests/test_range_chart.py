@@ -76,3 +76,41 @@ def test_view_follows_the_data_not_the_widest_format() -> None:
     for ax in fig.get_axes():  # every band label sits inside the visible range
         for t in ax.texts:
             assert lo <= t.get_position()[0] <= hi, t.get_text()
+
+
+def test_mx_formats_get_the_bands_of_the_block_holding_the_largest_value() -> None:
+    """Issue 18 item 8: an MX row showed no bands (and no block-NaN mark) while the table
+    reported its underflow. The bands are the element format's, shifted by the shared
+    exponent of the block holding the largest |x|: floor(log2 |x|max) - emax_elem (OCP MX
+    v1.0 §6.3; emax of float4_e2m1fn is 2, its largest 6 = 1.5 * 2^2)."""
+    import math
+
+    from matplotlib.colors import to_hex
+
+    from bitprism.numerics.options import CastOptions
+    from bitprism.numerics.thresholds import cast_thresholds
+    from bitprism.render.vocabulary import OUTCOMES
+    from bitprism.tensors.mx import MX_FORMATS
+
+    x = _data()[:4096].copy()
+    x[~np.isfinite(x)] = 1.0
+    x[7] = np.nan  # one NaN: its block's 31 finite values are lost (block NaN)
+    res = scan(x, ["float16", "mxfp4"], progress=False)
+    fig = res.plot()
+    ax = fig.get_axes()[1]
+    mx = MX_FORMATS["mxfp4"]
+    s = math.floor(math.log2(res.absmax)) - mx.element.emax
+    th = cast_thresholds(mx.element, CastOptions(overflow="saturate"))
+    spans = [p for p in ax.patches if p.get_width() != pytest.approx(0.9)]
+    fills = {to_hex(p.get_facecolor()[:3]): p for p in spans}
+    under = fills[OUTCOMES["underflow"].light.fill.lower()]
+    assert under.get_x() + under.get_width() == pytest.approx(math.log2(th.nonzero_from) + s)
+    sub = fills[OUTCOMES["subnormal"].light.fill.lower()]
+    assert sub.get_x() + sub.get_width() == pytest.approx(math.log2(th.normal_from) + s)
+    texts = [t.get_text() for t in ax.texts]
+    share = 100 * res["mxfp4"].underflow / res.size
+    assert any(t.startswith("underflow ") and f"{share:.3g}%" in t for t in texts), texts
+    assert any(f"shared scale 2^{s}" in t and "float4_e2m1fn" in t for t in texts), texts
+    nan = [t for t in ax.texts if t.get_text().startswith("block NaN")]
+    assert len(nan) == 1 and f"{res['mxfp4'].block_nan:,} finite" in nan[0].get_text()
+    assert to_hex(nan[0].get_bbox_patch().get_facecolor()[:3]) == OUTCOMES["nan"].light.fill.lower()

@@ -17,8 +17,9 @@ import pytest
 from bitprism.errors import BitprismError
 from bitprism.formats import get_format
 from bitprism.numerics.parse import parse
+from bitprism.render.vocabulary import OUTCOMES
 from bitprism.tensors.scan import scan
-from bitprism.ui.tensor_prism import TensorPrism
+from bitprism.ui.tensor_prism import DEFAULT_COLS, DEFAULT_ROWS, TensorPrism
 
 FMTS = ["bfloat16", "float8_e4m3fn"]
 
@@ -36,7 +37,11 @@ def _tensor() -> np.ndarray:
 
 
 def _cell(tp: TensorPrism, i: int, j: int):
-    return tp._cell_grid.cells[i * tp.window.cols + j]
+    return tp._cell_grid.cell(i, j)
+
+
+def _all_cells(tp: TensorPrism) -> list:
+    return [c for row in tp._cell_grid.cells for c in row]
 
 
 def test_builds_grid_and_css_classes() -> None:
@@ -49,8 +54,9 @@ def test_builds_grid_and_css_classes() -> None:
     for kind in ("nan", "inf", "overflow", "underflow", "largest-error"):
         assert f"bitprism-next-{kind}" in tp.nav_buttons[f"next-{kind.replace('-', '_')}"]._dom_classes
         assert f"bitprism-prev-{kind}" in tp.nav_buttons[f"prev-{kind.replace('-', '_')}"]._dom_classes
-    cells = tp._cell_grid.cells[: 16 * 16]
-    assert len(cells) == 256 and all("bitprism-cell" in c._dom_classes for c in cells)
+    cells = _all_cells(tp)  # the default window: 16 rows, 12 columns (fits 468 px)
+    assert len(cells) == DEFAULT_ROWS * DEFAULT_COLS == 16 * 12
+    assert all("bitprism-cell" in c._dom_classes for c in cells)
     assert "bitprism-scan" in tp.summary_html.value  # the scan's HTML
     # every cell carries its exact value and bit pattern as text
     value, bits = _cell(tp, 0, 1).tooltip.split(" = ")
@@ -69,26 +75,28 @@ def test_cast_view_marks_cells_like_ml_dtypes() -> None:
         for j in range(8):
             label = _cell(tp, i, j).description
             if np.isnan(x[i, j]):
-                want = "NaN"
+                want = "nan"
             elif not np.isfinite(q[i, j]):
-                want = "OVF"
+                want = "overflow"
             elif x[i, j] != 0 and q[i, j] == 0:
-                want = "→0"
+                want = "underflow"
             elif 0 < abs(q[i, j]) < tiny:
-                want = "sub"
+                want = "subnormal"
             elif q[i, j] == x[i, j]:
-                want = "ex"
+                want = "exact"
             else:
-                want = "rnd"
-            assert label == want, (i, j, x[i, j], q[i, j], label)
-    assert _cell(tp, 5, 5).description == "OVF" and _cell(tp, 6, 6).description == "→0"
+                want = "rounded"
+            # the cell shows the outcome's mark from the one vocabulary (render/vocabulary.py)
+            assert label == OUTCOMES[want].mark, (i, j, x[i, j], q[i, j], label)
+            assert _cell(tp, i, j).style is tp._cell_grid.styles[want]
+    assert _cell(tp, 5, 5).description == "↑" and _cell(tp, 6, 6).description == "→0"
     assert _cell(tp, 5, 5).style is tp._cell_grid.styles["overflow"]
-    assert "overflows" in tp.legend_html.value and "underflows to zero" in tp.legend_html.value
+    assert "overflow" in tp.legend_html.value and "underflow to zero" in tp.legend_html.value
 
 
 def test_next_nan_row_major_wraps_and_counts() -> None:
     tp = TensorPrism(_tensor(), formats=FMTS)
-    assert tp.nav_counts["nan"].value == "NaN: 3"
+    assert tp.nav_counts["nan"].value == "NaN: 3 cells"
     tp.nav_buttons["next-nan"].click()
     assert tp.selected == (2, 3)
     tp.nav_buttons["next-nan"].click()
@@ -97,24 +105,28 @@ def test_next_nan_row_major_wraps_and_counts() -> None:
     tp.nav_buttons["next-nan"].click()
     assert tp.selected == (30, 45) and tp.window.cell_of((30, 45)) is not None
     tp.nav_buttons["next-nan"].click()
-    assert tp.selected == (2, 3) and "wrapped" in tp.message
+    assert tp.selected == (2, 3) and "wrapped" in tp.info and tp.message == ""
+    assert "bitprism-info" in tp.message_html.value  # a note, not styled as an error
+    assert "bitprism-error" not in tp.message_html.value
     tp.nav_buttons["prev-nan"].click()
     assert tp.selected == (30, 45)
     sel = tp.window.cell_of((30, 45))
     assert "bitprism-cell-selected" in _cell(tp, *sel)._dom_classes
-    assert tp.nav_counts["overflow"].value == "overflow in bfloat16: 0"
+    assert tp.nav_counts["overflow"].value == "overflow in bfloat16: 0 cells"
+    assert tp.nav_buttons["next-overflow"].disabled and tp.nav_buttons["prev-overflow"].disabled
     tp.format_a = "float8_e4m3fn"
-    assert tp.nav_counts["overflow"].value == "overflow in float8_e4m3fn: 1"
+    assert tp.nav_counts["overflow"].value == "overflow in float8_e4m3fn: 1 cell"
+    assert not tp.nav_buttons["next-overflow"].disabled
     tp.nav_buttons["next-overflow"].click()
     assert tp.selected == (5, 5)
-    assert tp.nav_counts["underflow"].value == "underflow in float8_e4m3fn: 1"
+    assert tp.nav_counts["underflow"].value == "underflow in float8_e4m3fn: 1 cell"
     tp.nav_buttons["next-underflow"].click()
     assert tp.selected == (6, 6)
     tp.format_a = "bfloat16"
     tp.nav_buttons["next-overflow"].click()
-    assert "no overflow cell in bfloat16" in tp.message
+    assert "no overflow cell in bfloat16" in tp.info
     tp.nav_buttons["next-largest_error"].click()
-    assert "cells" in tp.nav_counts["largest_error"].value
+    assert tp.nav_counts["largest_error"].value.endswith((" cells", " 1 cell"))
 
 
 def test_selection_shows_exact_value_in_prism() -> None:
@@ -125,7 +137,9 @@ def test_selection_shows_exact_value_in_prism() -> None:
     _cell(tp, 3, 7).click()
     assert tp.selected == (3, 7) and seen == [(3, 7)]
     assert parse(tp.prism.value).magnitude == Fraction(float(a[3, 7])).__abs__()
-    assert [f.name for f in tp.prism.format_objects] == FMTS
+    # the tensor's own format first, then the grid's; compact, with a caption naming the cell
+    assert [f.name for f in tp.prism.format_objects] == ["float32", *FMTS]
+    assert tp.prism.compact and tp.prism.caption.startswith("cell [3, 7] of float32 [40, 50]")
     tp.goto("[12, 40]")
     assert tp.selected == (12, 40)
     assert Fraction(tp.prism.value) == Fraction(float(a[12, 40]))
@@ -143,13 +157,14 @@ def test_nd_axis_choice_and_sliders() -> None:
     tp = TensorPrism(a, formats=FMTS, view="value")
     assert (tp.row_axis, tp.col_axis) == (1, 2) and len(tp.sliders_box.children) == 1
     tp.sliders_box.children[0].value = 2  # axis 0 fixed at 2
-    assert np.array_equal(tp.window.raw, a[2, :, :16])
+    assert np.array_equal(tp.window.raw, a[2, :, :12])
+    assert (tp.rows, tp.cols) == (4, 12)  # never more rows than the tensor has
     tp.row_axis_menu.value = 0  # rows: axis 0, columns: axis 2, axis 1 fixed
-    assert (tp.row_axis, tp.col_axis) == (0, 2)
+    assert (tp.row_axis, tp.col_axis) == (0, 2) and (tp.rows, tp.cols) == (3, 12)
     tp.fixed = (0, 3, 0)
-    assert np.array_equal(tp.window.raw, a[:, 3, :16])
+    assert np.array_equal(tp.window.raw, a[:, 3, :12])
     tp.col_axis_menu.value = 0  # choosing the row axis for columns swaps the two
-    assert (tp.row_axis, tp.col_axis) == (2, 0)
+    assert (tp.row_axis, tp.col_axis) == (2, 0) and (tp.rows, tp.cols) == (16, 3)
     assert np.array_equal(tp.window.raw, a[:, 3, :16].T)
     tp.goto("1, 2, 33")
     assert tp.fixed[1] == 2 and tp.window.cell_of((1, 2, 33)) is not None
@@ -220,8 +235,8 @@ def test_views_value_error_compare() -> None:
     a = _tensor()
     tp = TensorPrism(a, formats=FMTS, rows=8, cols=8, view="value")
     assert _cell(tp, 0, 1).description == "1e-2" and _cell(tp, 1, 0).description == "2.955"  # sin(0.3) * 10
-    tp.log_scale = True
-    assert "log-magnitude" in tp.legend_html.value
+    tp.value_scale = "log"
+    assert "log scale" in tp.legend_html.value
     tp.view = "error"
     assert "ULP" in tp.legend_html.value and _cell(tp, 2, 3).description == "NaN"
     tp.error_unit = "relative"
@@ -249,7 +264,7 @@ def test_cell_updates_are_small_and_complete(monkeypatch: pytest.MonkeyPatch) ->
     ids = [s.model_id for t in (tp, other) for s in t._cell_grid.styles.values()]
     assert len(set(ids)) == len(ids) and all(len(i) < 32 for i in ids)
     refs = {f"IPY_MODEL_{s.model_id}": s for s in tp._cell_grid.styles.values()}
-    cells = {id(c): c for c in tp._cell_grid.cells}
+    cells = {id(c): c for c in _all_cells(tp)}
     for view in ("value", "class", "cast", "error", "compare"):
         tp.view = view
         tp.col_offset = 0
@@ -313,7 +328,7 @@ def test_memmap_reads_window_and_chunks_only(tmp_path) -> None:
     after = _anon_kb()
     assert tp.selected == (4000, 17)
     assert isinstance(tp.data, np.memmap)  # never copied into memory
-    assert tp.nav_counts["nan"].value == "NaN: 2"
+    assert tp.nav_counts["nan"].value == "NaN: 2 cells"
     if before is not None and after is not None:
         assert after - before < 48 * 1024, (before, after)  # well below the tensor's 64 MiB
 
@@ -347,7 +362,7 @@ def test_case_state_round_trip_and_static_html(tmp_path) -> None:
     assert state["data"]["dtype"] == "float32" and len(state["data"]["bits"]) == 30
     back = TensorPrism._from_case_state(state)
     assert np.array_equal(back.window.bits, tp.window.bits)  # NaN payloads included
-    assert back.view == "error" and back.selected == tp.window.cell_of((2, 3))
+    assert back.view == "error" and back.selected == (2, 3)  # the tensor's own index
     html = tp._static_html()
     assert "bitprism-grid" in html and "bitprism-scan" in html and "<script" not in html
     page = tp.export_html(tmp_path / "case.html", note="planted NaN")
@@ -398,7 +413,7 @@ def test_nan_and_inf_cells_raise_no_warning_in_any_view() -> None:
     tp = TensorPrism(a, formats=FMTS, format_b="float8_e4m3fn")
     for view in ("value", "class", "cast", "error", "compare"):
         for log_scale in (False, True):
-            tp.view, tp.log_scale = view, log_scale
+            tp.view, tp.value_scale = view, "log" if log_scale else "auto"
             assert tp.message == "", (view, tp.message)
     for kind in ("nan", "inf", "overflow", "underflow", "largest_error"):
         for unit in ("ulp", "relative"):
@@ -428,7 +443,7 @@ def test_custom_formats_everywhere_a_builtin_goes(tmp_path) -> None:
     assert tp.message == "" and (tp.format_a, tp.format_b) == ("bfloat16", "e3m3")
     assert tp._fmt("b") is e3m3 and tp.b_menu.value == "e3m3"
     tp.goto("2, 4")
-    assert [f.name for f in tp.prism.format_objects] == ["bfloat16", "e3m3"]
+    assert [f.name for f in tp.prism.format_objects] == ["float32", "bfloat16", "e3m3"]
     for path in (tp.save_case(tmp_path / "t.json"), tp.export_html(tmp_path / "t.html")):
         back = open_case(path)
         assert back.format_objects == [get_format("bfloat16"), e3m3]
@@ -517,6 +532,318 @@ def test_counts_of_a_large_tensor_wait_for_a_press() -> None:
     tp = TensorPrism(a, formats=FMTS, summary_scope="slice")
     assert tp.nav_counts["nan"].value == "NaN: press ◀ ▶ to find"
     tp.nav_buttons["next-nan"].click()
-    assert tp.selected == (3, 7, 9) and tp.nav_counts["nan"].value == "NaN: 1"
+    assert tp.selected == (3, 7, 9) and tp.nav_counts["nan"].value == "NaN: 1 cell"
     small = TensorPrism(a[:2, :64, :64], formats=FMTS, summary_scope="slice")
-    assert small.nav_counts["nan"].value == "NaN: 0"  # cheap: counted at once, as before
+    assert small.nav_counts["nan"].value == "NaN: 0 cells"  # cheap: counted at once
+
+
+# ----- issue 18: a TensorPrism and case files that hold up through a whole session -------------
+import re  # noqa: E402
+import warnings  # noqa: E402
+
+import ipywidgets  # noqa: E402
+
+from bitprism.render.grid_html import PAINTS, grid_css  # noqa: E402
+from bitprism.render.vocabulary import DARK_PAGE, LIGHT_PAGE, SCALES  # noqa: E402
+
+
+def _live_widgets() -> int:
+    with warnings.catch_warnings():  # the registry of live widgets (deprecated name, same dict)
+        warnings.simplefilter("ignore", DeprecationWarning)
+        return len(ipywidgets.Widget.widgets)
+
+
+def _activations() -> np.ndarray:
+    """Invented 48 x 80 activations with NaN, Inf and outliers (the issue's scenario)."""
+    a = (np.random.default_rng(18).standard_normal((48, 80)) * 3).astype(np.float32)
+    a[10, 10] = np.uint32(0xFFC00000).view(np.float32)  # a negative quiet NaN
+    a[30, 77] = np.nan
+    a[47, 0] = np.nan
+    a[2, 79] = np.inf
+    a[20, 40] = 7.0e4  # past float16's largest finite, 65504
+    a[21, 41] = -3.0e-9  # below float16's smallest subnormal: underflows to zero
+    return a
+
+
+def test_live_widget_count_is_constant_over_50_reshapes() -> None:
+    """Item 1: the grid's widgets are made once for the largest window and reused; anything
+    replaced (the sliders of an axis choice) is closed. Reshapes: rows and columns changed,
+    axes swapped, jumps to cells near the edges (the window keeps its shape there), new data
+    of another shape."""
+    a = np.arange(3 * 40 * 50, dtype=np.float32).reshape(3, 40, 50) / 7  # invented
+    a[2, 39, 49] = np.nan
+    tp = TensorPrism(a, formats=FMTS)
+    steps = [
+        lambda k: setattr(tp, "rows", 1 + (7 * k) % 16),
+        lambda k: setattr(tp, "cols", 1 + (5 * k) % 12),
+        lambda k: setattr(tp, "row_axis", (0, 1)[k % 2]),
+        lambda k: tp.goto(f"{k % 3}, {39 - k % 2}, {49 - k % 3}"),
+        lambda k: tp.find_next("nan", backward=bool(k % 2)),
+        lambda k: tp.pan("page-right" if k % 2 else "page-left"),
+        lambda k: setattr(tp, "view", ("value", "class", "cast", "error", "compare")[k % 5]),
+    ]
+    for k in range(len(steps)):  # once each: the largest window and every control made
+        steps[k](k)
+    children = tp.grid.children
+    before = _live_widgets()
+    shapes = set()
+    for k in range(50):
+        steps[k % len(steps)](k)
+        shapes.add((tp.window.rows, tp.window.cols))
+        assert tp.message == "", tp.message
+    assert len(shapes) > 10  # the window really changed shape
+    assert _live_widgets() == before
+    assert tp.grid.children is children  # the grid box itself was never rebuilt
+    grid = tp._cell_grid
+    for i, row in enumerate(grid.cells):  # cells outside the window are hidden, not removed
+        for j, cell in enumerate(row):
+            shown = i < tp.window.rows and j < tp.window.cols
+            assert cell.layout is (grid.cell_layout if shown else grid.hidden_layout)
+
+
+def test_jumps_near_the_edge_keep_the_window_whole() -> None:
+    tp = TensorPrism(_activations(), formats=["float16", "bfloat16"])
+    assert (tp.window.rows, tp.window.cols) == (16, 12)
+    for index in ("47, 0", "0, 79", "47, 79", "2, 79"):
+        tp.goto(index)
+        assert (tp.window.rows, tp.window.cols) == (16, 12), index
+        assert tp.window.cell_of(tp.selected) is not None
+
+
+def test_default_window_comes_from_the_tensor() -> None:
+    """Item 2: rows/cols said 16 for a 6 x 8 tensor."""
+    small = TensorPrism(np.ones((6, 8), np.float32), formats=FMTS)
+    assert (small.rows, small.cols) == (6, 8) and small.window.raw.shape == (6, 8)
+    wide = TensorPrism(_activations(), formats=FMTS)
+    assert (wide.rows, wide.cols) == (DEFAULT_ROWS, DEFAULT_COLS)
+    asked = TensorPrism(np.ones((6, 8), np.float32), formats=FMTS, rows=20, cols=30)
+    assert (asked.rows, asked.cols) == (6, 8)
+    row = TensorPrism(np.arange(5, dtype=np.float32), formats=FMTS)
+    assert (row.rows, row.cols) == (1, 5)
+    assert small.rows_input.value == 6 and small.cols_input.value == 8
+
+
+def test_controls_wrap_and_rare_ones_fold_into_options() -> None:
+    """Item 2: every row of controls wraps (nothing is clipped in a 468-px column); the
+    rarely used controls sit in a folded options section; descriptions are never cut."""
+    tp = TensorPrism(_activations(), formats=FMTS)
+    section = tp.options_section
+    assert isinstance(section, ipywidgets.Accordion) and section.selected_index is None
+    assert section.titles == ("options",)
+
+    def inside(box):
+        for child in box.children:
+            yield child
+            if isinstance(child, ipywidgets.Box) and child is not tp.prism:
+                yield from inside(child)
+
+    folded = set(map(id, inside(section)))
+    for rare in (tp.rounding_menu, tp.overflow_menu, tp.subnormals_menu, tp.seed_input,
+                 tp.row_axis_menu, tp.col_axis_menu, tp.rows_input, tp.cols_input,
+                 tp.scope_menu, tp.chart_button):
+        assert id(rare) in folded
+    for main in (tp.view_menu, tp.a_menu, tp.goto_input, tp.pin_button, tp.note_input):
+        assert id(main) not in folded
+    for box in inside(tp):
+        if isinstance(box, ipywidgets.HBox) and box is not tp.grid:
+            assert box.layout.flex_flow == "row wrap", box
+        if isinstance(box, ipywidgets.Dropdown):
+            assert box.style.description_width == "initial"  # "columns: axis", never cut
+
+
+def test_embedded_prism_is_compact_captioned_and_keeps_the_original_bits() -> None:
+    """Item 3: the value view names the cell and the dtype, shows the tensor's own format
+    first, bit for bit (the NaN 0xffc00000 was only in a tooltip), and takes its options from
+    the grid (no controls of its own)."""
+    a = _activations()
+    tp = TensorPrism(a, formats=["float16", "bfloat16"])
+    tp.goto("10, 10")
+    p = tp.prism
+    assert p.compact
+    assert p.caption == "cell [10, 10] of float32 [48, 80] · bits 0xffc00000"
+    assert [f.name for f in p.format_objects] == ["float32", "float16", "bfloat16"]
+    assert (p.source_format, p.source_code) == ("float32", 0xFFC00000)
+    assert p.comparison.row("float32").code == 0xFFC00000
+    tp.rounding, tp.subnormals = "roundTowardZero", "flush"
+    assert (p.rounding, p.subnormals) == ("roundTowardZero", "flush")
+    tp.rounding = "roundTiesToEven"
+    tp.goto("20, 40")  # 7e4: float16 overflows to Inf; numpy's own cast agrees
+    with np.errstate(over="ignore"):
+        assert np.isinf(np.float16(a[20, 40]))
+    assert p.comparison.row("float16").code == int(np.float16(np.inf).view(np.uint16))
+
+
+def _contrast(a: str, b: str) -> float:
+    def lum(h: str) -> float:  # WCAG 2.1 relative luminance
+        def ch(c: int) -> float:
+            x = c / 255
+            return x / 12.92 if x <= 0.04045 else ((x + 0.055) / 1.055) ** 2.4
+        r, g, b_ = (int(h[i:i + 2], 16) for i in (1, 3, 5))
+        return 0.2126 * ch(r) + 0.7152 * ch(g) + 0.0722 * ch(b_)
+    hi, lo = sorted((lum(a), lum(b)), reverse=True)
+    return (hi + 0.05) / (lo + 0.05)
+
+
+@pytest.mark.parametrize("theme", ["light", "dark"])
+@pytest.mark.parametrize("hue", sorted(SCALES))
+def test_scale_steps_stand_3_to_1_apart(hue: str, theme: str) -> None:
+    """Item 4: the value view's step-1 fills were 1.02:1 apart, "exact" and "rounded" 1.05:1.
+    Each scale's steps now stand 3:1 from the page and from each other (WCAG 2.1 §1.4.11),
+    with text 4.5:1 on them (§1.4.3), in both themes; the ratios are computed here."""
+    page = LIGHT_PAGE if theme == "light" else DARK_PAGE
+    one, two = getattr(SCALES[hue], theme)
+    assert _contrast(one.fill, page) >= 3.0
+    assert _contrast(two.fill, one.fill) >= 3.0
+    assert _contrast(one.fill, one.text) >= 4.5 and _contrast(two.fill, two.text) >= 4.5
+    css = grid_css()
+    assert f"--bp-{hue}-1-fill:{SCALES[hue].dark[0].fill}" in css  # the dark theme's own
+
+
+def test_every_fill_comes_from_the_vocabulary() -> None:
+    from bitprism.render.vocabulary import OUTCOMES
+
+    for key, p in PAINTS.items():
+        m = re.fullmatch(r"var\(--([a-z0-9-]+),(#[0-9a-f]{6})\)", p.fill)
+        assert m, (key, p.fill)
+        name, light = m.groups()
+        if name.startswith("jp-"):
+            continue  # the page itself (no fill): JupyterLab's own colour
+        if name.startswith("bp-") and name.endswith("-fill") and name[3:-5] in OUTCOMES:
+            assert light == OUTCOMES[name[3:-5]].light.fill
+        else:
+            hue, step = re.fullmatch(r"bp-([a-z]+)-([12])-fill", name).groups()
+            assert light == SCALES[hue].light[int(step) - 1].fill
+    tp = TensorPrism(_activations(), formats=FMTS)
+    assert "bitprism" in tp._dom_classes  # the dark theme's variables apply inside it
+    assert "--jp-ui-font-color0" in grid_css()  # the selected cell's outline: the text colour
+
+
+def test_value_view_is_robust_to_an_outlier() -> None:
+    """Item 4: one outlier collapsed the linear scale to one step; 'auto' takes the quantile
+    scale when the window's magnitudes span more than 16x, and the legend gives the break."""
+    a = _activations()
+    tp = TensorPrism(a, formats=FMTS, view="value", rows=12, cols=12, row_offset=15,
+                     col_offset=35)
+    keys = {tp._paint.keys[i][j] for i in range(12) for j in range(12)}
+    assert {"v-1", "v-2", "v+1", "v+2"} <= keys
+    finite = np.abs(tp.window.values[np.isfinite(tp.window.values) & (tp.window.values != 0)])
+    median = float(np.median(finite))
+    assert f"steps break at {median:.3g}" in tp.legend_html.value and "quantile" in tp.legend_html.value
+    tp.value_scale = "linear"  # half the largest: the outlier alone is step 2
+    big = [(i, j) for i in range(12) for j in range(12) if tp._paint.keys[i][j].endswith("2")]
+    assert big == [tp.window.cell_of((20, 40))]
+
+
+def test_compare_labels_have_one_form_and_the_legend_gives_the_steps() -> None:
+    a = _activations()
+    tp = TensorPrism(a, formats=["float16", "bfloat16"], view="compare")
+    labels = {_cell(tp, i, j).description for i in range(tp.window.rows)
+              for j in range(tp.window.cols)}
+    form = re.compile(r"[AB]×(\d\.\d|\d{2,3}|\de\d+|∞)")
+    marks = {o.mark for o in OUTCOMES.values()}
+    assert all(form.fullmatch(t) or t == "tie" or t in marks for t in labels), labels
+    # float16 (11 significant bits) lands closer than bfloat16 (8) on values in range:
+    # their errors differ by about 2^3 (IEEE 754-2019 §3.6 precisions)
+    assert any(t.startswith("A×") for t in labels) and "×16" in tp.legend_html.value
+    tie = TensorPrism(np.array([[1.0, 0.5]], np.float32), formats=FMTS, view="compare")
+    assert {_cell(tie, 0, j).description for j in range(2)} == {"tie"}  # exact in both
+
+
+def test_counts_say_cell_or_cells_and_empty_kinds_disable_their_buttons() -> None:
+    tp = TensorPrism(_activations(), formats=["float16", "bfloat16"])
+    assert tp.nav_counts["inf"].value == "Inf: 1 cell"
+    assert tp.nav_counts["nan"].value == "NaN: 3 cells"
+    assert tp.nav_counts["overflow"].value == "overflow in float16: 1 cell"
+    tp.format_a = "bfloat16"
+    assert tp.nav_counts["overflow"].value == "overflow in bfloat16: 0 cells"
+    assert tp.nav_buttons["next-overflow"].disabled and tp.nav_buttons["prev-overflow"].disabled
+    assert not tp.nav_buttons["next-nan"].disabled
+
+
+def _author_case(tmp_path, **kwargs):
+    a = _activations()
+    tp = TensorPrism(a, formats=["float16", "bfloat16"], **kwargs)
+    tp.find_next("nan")  # the first NaN in row-major order: [10, 10]
+    tp.find_next("overflow")  # counted: the count shows
+    assert tp.selected == (20, 40)
+    tp.goto("10, 10")
+    tp.note = "float16 cannot hold the 7e4 at [20, 40]; the NaN at [10, 10] is 0xffc00000"
+    return a, tp, tp.save_case(tmp_path / "author.json")
+
+
+def test_case_round_trip_keeps_indices_shape_summary_counts_and_note(tmp_path) -> None:
+    """Item 5 (reproducer: a reopened case renumbered indices from 0, reported the saved
+    window's shape, recomputed NaN: 0 where the author saw 3, showed no note, and lost the
+    note on a save without note=)."""
+    from bitprism.ui.case_file import open_case
+
+    a, tp, path = _author_case(tmp_path)
+    back = open_case(path)
+    assert back.selected == (10, 10) and back.window.shape == (48, 80)
+    assert back.window.index_of(0, 0) == tp.window.index_of(0, 0)
+    assert "float32 [48, 80]" in back.position_html.value
+    assert "selected [10, 10]" in back.position_html.value
+    assert [back._cell_grid.col_heads[j].value for j in range(3)] == [
+        tp._cell_grid.col_heads[j].value for j in range(3)]
+    # the whole-tensor summary the author saw, recorded (numpy counts the NaNs here)
+    assert back.summary.size == a.size and back.summary.histogram.nan == int(np.isnan(a).sum())
+    assert back.summary.formats == tp.summary.formats
+    assert "recorded when the case was saved" in back.summary_html.value
+    assert back.nav_counts["nan"].value == tp.nav_counts["nan"].value == "NaN: 3 cells"
+    assert back.nav_counts["overflow"].value == "overflow in float16: 1 cell"
+    # the note: shown in an editable field, kept by a save without note=
+    assert back.note_input.value == tp.note and back.note == tp.note
+    again = open_case(back.save_case(tmp_path / "again.json"))
+    assert again.note == tp.note and again.summary.histogram.nan == 3
+    back.note_input.value = "edited"
+    assert open_case(back.save_case(tmp_path / "edited.json")).note == "edited"
+    # the exported page shows the selected cell's bit breakdown
+    page = back.export_html(tmp_path / "case.html").read_text(encoding="utf-8")
+    assert "cell [10, 10] of float32 [48, 80] · bits 0xffc00000" in page
+    assert "bitprism-detail" in page and "float16" in page
+    # a reader's own settings: figures of the saved window, and it says so
+    back.format_a = "bfloat16"
+    assert back.nav_counts["overflow"].value == "overflow in bfloat16 (saved window): 0 cells"
+    back.goto("0, 0")
+    assert "outside" in back.message and back.selected == (10, 10)
+
+
+def test_reopened_stochastic_window_draws_as_the_authors(tmp_path) -> None:
+    """Item 5: stochastic rounding draws from the window's place in the tensor, which the case
+    now keeps, so a reopened case shows the author's cells."""
+    from bitprism.ui.case_file import open_case
+
+    a, tp, path = _author_case(tmp_path, rounding="stochastic", seed=11)
+    back = open_case(path)
+    for c, d in zip(back.window.casts, tp.window.casts):
+        assert np.array_equal(c.codes, d.codes)
+    moved = TensorPrism(a, formats=["float16", "bfloat16"], rounding="stochastic", seed=11,
+                        row_offset=tp.row_offset + 1, col_offset=tp.col_offset)
+    assert not np.array_equal(moved.window.casts[0].codes[:-1], tp.window.casts[0].codes[1:])
+
+
+def test_schema_1_tensor_case_still_opens(tmp_path) -> None:
+    """Item 5: a case as bitprism wrote it before (schema 1: log_scale, no recorded summary)
+    opens through the migration, at its place in the tensor."""
+    from bitprism.ui.case_file import open_case
+
+    old = {
+        "bitprism_case": 1, "kind": "tensor_prism", "created": "2025-06-01T10:00:00Z",
+        "versions": {"bitprism": "0.1.0"}, "note": "old case",
+        "state": {
+            "formats": ["bfloat16"], "options": {"rounding": "roundTiesToEven"},
+            "view": "value", "log_scale": True, "error_unit": "ulp", "summary_scope": "tensor",
+            "shape": [4, 40], "axes": [0, 1], "fixed": [0, 0],
+            "window": {"row": 1, "col": 30, "rows": 2, "cols": 2}, "origin": [1, 30],
+            "selected": [2, 31],
+            "data": {"dtype": "float32", "rows": 2, "cols": 2,
+                     "bits": ["0x3f800000", "0x7fc00001", "0xbf000000", "0x00000000"]},
+        },
+    }
+    path = tmp_path / "old.json"
+    path.write_text(json.dumps(old), encoding="utf-8")
+    back = open_case(path)
+    assert back.value_scale == "log" and back.note == "old case"
+    assert back.selected == (2, 31) and back.window.shape == (4, 40)
+    assert back.window.bits.tolist() == [[0x3F800000, 0x7FC00001], [0xBF000000, 0]]
+    assert back.nav_counts["nan"].value == "NaN (saved window): 1 cell"

@@ -166,3 +166,27 @@ def test_parse_index_short_form_and_errors() -> None:
         parse_index("1", (2, 3, 4))
     with pytest.raises(ParseError):
         parse_index("__import__('os')", (4, 20))
+
+
+@pytest.mark.parametrize("rounding", ["roundTiesToEven", "stochastic"])
+def test_a_placed_block_reads_as_the_same_window_of_the_tensor(rounding: str) -> None:
+    """Issue 18 item 5: a reopened case holds only its saved window, placed where it was; the
+    window read from that block is the tensor's window: same indices, same shape, same bits,
+    and the same stochastic draws (they derive from the window's place in the tensor)."""
+    from bitprism.tensors.window import Placed
+
+    x = _data(3)
+    opts = CastOptions(rounding=rounding, seed=5)  # type: ignore[arg-type]
+    whole = make_window(x, 0, 1, (0, 0), 7, 20, 5, 6, ["bfloat16", "float8_e4m3fn"], opts)
+    block = np.ascontiguousarray(x[7:12, 20:26])
+    part = make_window(block, 0, 1, (7, 20), 7, 20, 5, 6, ["bfloat16", "float8_e4m3fn"], opts,
+                       offset=(7, 20), shape=x.shape)
+    assert part.shape == whole.shape == x.shape and part.index_of(0, 0) == (7, 20)
+    assert np.array_equal(part.bits, whole.bits)
+    for a, b in zip(part.casts, whole.casts):
+        assert np.array_equal(a.codes, b.codes)
+    with pytest.raises(BitprismError, match=r"row 6 is outside the indices 7\.\.11 held of axis 0"):
+        make_window(block, 0, 1, (7, 20), 6, 20, 5, 6, ["bfloat16"], opts, offset=(7, 20),
+                    shape=x.shape)
+    with pytest.raises(BitprismError, match="does not fit axis 1"):
+        Placed(block, (7, 20), (24, 25))

@@ -8,6 +8,12 @@ is labelled with the share of the tensor that lands in it. Band edges come from 
 thresholds (``FormatScan.underflow_below``, ``normal_from``, ``overflow_from``), so they follow
 the rounding and subnormal options the scan used.
 
+A block format (MX) has no bands of its own: each block of 32 shares a power-of-two scale. Its
+row shows the element format's bands for the block that holds the tensor's largest |x|, shifted
+by that block's shared exponent (MX v1.0 §6.3: ``floor(log2 max|x|) - emax_elem``), and says so;
+nothing in that block lies above its largest element. Finite values lost because their block
+holds a NaN or Inf (the scan's ``block_nan``) get a mark in the NaN colour.
+
 matplotlib is imported when a chart is drawn, never at module import.
 """
 
@@ -17,6 +23,8 @@ import math
 from typing import Any
 
 from ..errors import BitprismError
+from ..numerics.options import CastOptions
+from ..numerics.thresholds import cast_thresholds
 from ..render.vocabulary import FIELDS, OUTCOMES
 
 __all__ = ["range_chart"]
@@ -30,6 +38,27 @@ _BAND = {
     "overflow": OUTCOMES["overflow"].light.fill,
 }
 _BAR = FIELDS["sign"].colour.fill  # ink-violet
+_NAN = OUTCOMES["nan"].light.fill
+_E8M0_MIN, _E8M0_MAX = -127, 127  # the shared scale's exponent range (MX v1.0 Table 7)
+
+
+def _block_edges(f: Any, absmax: float | None,
+                 options: CastOptions) -> tuple[float, float | None, float, int] | None:
+    """For a block-format row: (underflow below, normal from, top, shared exponent) of the
+    block holding the tensor's largest |x|; None for a plain format or no finite data."""
+    mx = f.format
+    if not hasattr(mx, "emax_elem") or not absmax or not math.isfinite(absmax):
+        return None
+    s = math.floor(math.log2(absmax)) - int(mx.emax_elem)
+    s = max(_E8M0_MIN, min(_E8M0_MAX, s))
+    scale = 2.0 ** s
+    elem = getattr(mx, "element", None)
+    if elem is None:  # MXINT8: k/64, no subnormals; below half of 1/64 rounds to zero
+        return 2.0 ** -7 * scale, None, float(mx.max_normal) * scale, s
+    th = cast_thresholds(elem, CastOptions(options.rounding, "saturate", options.subnormals))
+    normal = th.normal_from if th.normal_from and th.normal_from > th.nonzero_from else None
+    return (th.nonzero_from * scale, None if normal is None else normal * scale,
+            float(mx.max_normal) * scale, s)
 
 
 def _log2(v: float | None) -> float | None:
@@ -69,6 +98,23 @@ def _view(exps: list[int], edges: list[float]) -> tuple[float, float]:
     return lo, hi
 
 
+def _block_notes(ax: Any, f: Any, blk: tuple[float, float | None, float, int], lo: float) -> None:
+    """A block format's row: what its bands are, its top edge, and the block-NaN mark."""
+    elem = getattr(f.format, "element", None)
+    name = elem.name if elem is not None else "int8 x 2^-6"
+    ax.axvline(math.log2(blk[2]), color=FIELDS["significand"].colour.fill, lw=1.0, ls="--")
+    ax.text(lo + 0.2, 0.04, f"bands: {name} in the block holding the largest |x| "
+            f"(shared scale 2^{blk[3]}); underflow share over all blocks",
+            transform=ax.get_xaxis_transform(), ha="left", va="bottom", fontsize=6.5,
+            color="#1f2328", clip_on=True,
+            bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
+    if f.block_nan:
+        ax.text(0.995, 0.7, f"block NaN {_share(f.block_nan, f.size)}: {f.block_nan:,} finite "
+                "values in blocks holding a NaN/Inf", transform=ax.transAxes, ha="right",
+                va="center", fontsize=7, color="white", clip_on=True,
+                bbox={"boxstyle": "round,pad=0.2", "fc": _NAN, "ec": "none"})
+
+
 def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, log: bool = True) -> Any:
     """Draw the range chart of a ``ScanResult``; returns the matplotlib ``Figure``.
 
@@ -91,22 +137,35 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
     exps = list(h.exponents)
     counts = list(h.counts)
     edges = []
+    blocks = {}
     for f in rows:
-        edges += [e for e in (_log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)) if e is not None]
+        blk = _block_edges(f, result.absmax, result.options)
+        if blk is not None:
+            blocks[f.name] = blk
+            triple = (blk[0], blk[1], blk[2])
+        else:
+            triple = (f.underflow_below, f.normal_from, f.overflow_from)
+        edges += [e for e in map(_log2, triple) if e is not None]
     lo, hi = _view(exps, edges)
     for ax, f in zip(axes, rows):
         bands = []
-        u, n_, o = _log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)
+        blk = blocks.get(f.name)
+        if blk is not None:
+            u, n_, o = _log2(blk[0]), _log2(blk[1]), None
+        else:
+            u, n_, o = _log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)
         far_lo, far_hi = min(lo, *(edges or [lo])) - 1, max(hi, *(edges or [hi])) + 1
         if u is not None:
             bands.append(("underflow", far_lo, u, f.underflow))
             if n_ is not None and n_ > u:
                 bands.append(("subnormal", u, n_, f.subnormal))
         start = n_ if n_ is not None else (u if u is not None else far_lo)
-        end = o if o is not None else far_hi
+        end = o if o is not None else (_log2(blk[2]) or far_hi if blk is not None else far_hi)
         bands.append(("normal", start, end, None))
         if o is not None:
             bands.append(("overflow", o, far_hi, f.overflow))
+        if blk is not None:
+            _block_notes(ax, f, blk, lo)
         for kind, a, b, n in bands:
             alpha = 0.12 if kind == "normal" else 0.28
             ax.axvspan(a, b, color=_BAND[kind], alpha=alpha, lw=0)

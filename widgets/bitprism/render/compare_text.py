@@ -8,8 +8,9 @@ from __future__ import annotations
 from fractions import Fraction
 
 from ..numerics.compare import Comparison, FormatRow
-from ..numerics.decimal_text import exact_decimal, readable_decimal, scientific
+from ..numerics.decimal_text import exact_decimal, scientific
 from ..numerics.inspect import CodeClass
+from .vocabulary import OUTCOMES, UNITS
 
 __all__ = [
     "MINUS",
@@ -82,9 +83,9 @@ def event_labels(row: FormatRow) -> list[str]:
     """What the cast did, in words (overflow, underflow to zero, subnormal, not representable)."""
     out = []
     if row.overflowed:
-        out.append("overflow")
+        out.append(OUTCOMES["overflow"].name)
     if row.underflowed:
-        out.append("underflow to zero")
+        out.append(OUTCOMES["underflow"].name)
     if row.not_representable:
         out.append("not representable")
     return out
@@ -135,41 +136,35 @@ def _cut(line: str, width: int) -> str:
 
 
 def comparison_text(c: Comparison, width: int = 120) -> str:
-    """A fixed-width table: one line per format, lines cut to ``width`` characters."""
-    opts = c.options
-    head = f"input {c.text} = {_input_text(c)}"
-    setting = f"{opts.rounding}, overflow {opts.overflow}, subnormals {opts.subnormals}"
-    if opts.rounding == "stochastic":
-        setting += f", seed {opts.seed}"
-    if c.via is not None:
-        setting += f", via {c.via.name}"
-    lines = [_cut(head, width), _cut(setting, width)]
+    """The verdicts first (one line per format, in words), then a fixed-width table: class,
+    stored value (shortest and exact decimal), errors and raw bits. Lines are cut to
+    ``width`` characters (marked ``…``)."""
+    from .verdicts import exact_input_text, options_text, stored_pair, verdict
+
+    lines = [_cut(f"input {c.text} = {exact_input_text(c)}", width),
+             _cut(options_text(c), width)]
     name_w = max(6, *(len(r.format.name) for r in c.rows))
+    for r in c.rows:
+        _, words = verdict(c, r)
+        lines.append(_cut(f"{r.format.name + ':':<{name_w + 1}} {words}", width))
+    lines.append("")
     bits_w = max(32, *(len(grouped_bits(r)) for r in c.rows))
-    shown = [
-        readable_decimal(r.shortest, r.exact) if r.stored.is_finite else r.shortest for r in c.rows
-    ]
-    value_w = max(5, *(len(v) for v in shown))
+    pairs = [stored_pair(r) for r in c.rows]
+    short_w = max(8, *(len(p[0]) for p in pairs))
+    exact_w = max(5, *(len(p[1]) if p[1] != p[0] else 1 for p in pairs))
+    ulp = UNITS["ulp"]
     cols = (
-        f"{'format':<{name_w}}  {'class':<9}  {'value':<{value_w}}  {'ulp err':>8}  "
-        f"{'rel err':>11}  {'bits (sign exponent significand)':<{bits_w}}  events"
+        f"{'format':<{name_w}}  {'class':<9}  {'shortest':<{short_w}}  {'exact':<{exact_w}}  "
+        f"{ulp + ' err':>8}  {UNITS['relative'] + ' err':>12}  "
+        f"{'bits (sign biased-exponent trailing-significand)':<{bits_w}}"
     )
     lines.append(_cut(cols.rstrip(), width))
-    for r, value in zip(c.rows, shown):
-        ev = ", ".join(event_labels(r))
+    for r, (shortest, exact) in zip(c.rows, pairs):
         line = (
-            f"{r.format.name:<{name_w}}  {class_label(r):<9}  {value:<{value_w}}  "
-            f"{format_error(r.ulp_error):>8}  {format_number(r.rel_error, 4, signed=True):>11}  "
-            f"{grouped_bits(r):<{bits_w}}  {ev}"
+            f"{r.format.name:<{name_w}}  {class_label(r):<9}  {shortest:<{short_w}}  "
+            f"{(exact if exact != shortest else '='):<{exact_w}}  "
+            f"{format_error(r.ulp_error):>8}  {format_number(r.rel_error, 4, signed=True):>12}  "
+            f"{grouped_bits(r):<{bits_w}}"
         )
         lines.append(_cut(line.rstrip(), width))
     return "\n".join(lines)
-
-
-def _input_text(c: Comparison) -> str:
-    x = c.input
-    if not x.is_finite:
-        return str(x).replace("inf", "Inf").replace("nan", "NaN")
-    if x.clamped:
-        return str(x)
-    return exact_decimal(x.value, max_digits=24)

@@ -9,7 +9,7 @@ from ..numerics.decimal_text import decimal_digit_count
 from ..numerics.digits import full_digit_cap
 from ..numerics.exact import ExactValue
 
-__all__ = ["evaluation_text", "short_value"]
+__all__ = ["evaluation_text", "short_value", "step_cause"]
 
 
 def short_value(v: ExactValue, digits: int = 17) -> str:
@@ -73,6 +73,27 @@ def evaluation_text(ev: Any) -> str:
     for step in ev.steps:
         lines.append(
             f"    {step.operation}  = {short_value(step.exact)}  ->  {short_value(step.rounded)} "
-            f"[{hexcode.format(step.code)}]  {step.event}"
+            f"[{hexcode.format(step.code)}]  {_CAUSES.get(step.event, step.event)}"
         )
     return "\n".join(lines)
+
+
+# The cause of a step that was not exact, in words shared with the Prism's compute box.
+_CAUSES = {
+    "rounded": "rounded",
+    "absorbed": "absorbed addend (the sum equals one addend)",
+    "overflow": "overflow",
+    "underflow": "underflow to zero",
+    "invalid": "invalid operation (NaN)",
+    "divide by zero": "divide by zero",
+}
+
+
+def step_cause(step: Any) -> str:
+    """One step in words: "2048 + 1 = 2049 -> 2048: absorbed addend (the sum equals one
+    addend)"; a literal that rounds reads "literal 0.1 -> 0.1000000015: rounded"."""
+    cause = _CAUSES.get(step.event, step.event)
+    if step.kind == "literal":
+        return f"literal {step.operation} -> {short_value(step.rounded)}: {cause}"
+    return (f"{step.operation} = {short_value(step.exact)} -> {short_value(step.rounded)}: "
+            f"{cause}")

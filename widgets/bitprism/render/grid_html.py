@@ -1,13 +1,18 @@
 """A tensor window as coloured cells: the paint model (shared by the widget and static HTML),
-the legend, and a static HTML grid.
+the legend, the grid's style block, and a static HTML grid.
 
-Colours come from ``render.palette``: class badges (NaN magenta, Inf deep red, subnormal lilac,
-zero grey, normal neutral) for classes; the value view's diverging scale runs from the
-ink-violet sign tile (negative) through white to the teal significand tile (positive); the
-error heat scale runs from white to the amber exponent tile. Scale steps are tints of those
-palette colours (mixed with white), so there is one palette. Every cell also carries a short
-text label and a tooltip with its exact value (hex float) and bit pattern: colour is never the
-only carrier. Text colour on each fill is whichever of near-black / white contrasts more.
+Every fill comes from ``render.vocabulary``: the cast and class views wear the outcome colours
+(an input zero takes the grey scale's first step); the value view runs from the ink-violet
+scale (negative) through the page (zero) to the teal scale (positive); the error view is the
+amber scale; the compare view teal where format A lands closer and violet where B does. A scale
+has two steps, 3:1 apart and from the page in both themes (``vocabulary.Scale``); where the
+step breaks is chosen from the window's own numbers and written in the legend. Every cell also
+carries a short text label and a tooltip with its exact value (hex float) and bit pattern:
+colour is never the only carrier.
+
+Fills are CSS values ``var(--bp-..., <light colour>)``: the light colours apply where nothing
+sets the variables (an exported page, nbconvert), and ``grid_css()`` (with ``theme_css()``) sets
+them for JupyterLab's dark theme inside an element of class ``bitprism``.
 """
 
 from __future__ import annotations
@@ -16,133 +21,119 @@ import math
 import re
 from dataclasses import dataclass
 from html import escape
-from typing import Mapping, Sequence
+from typing import Mapping
 
 import numpy as np
 
 from ..tensors.window import CAST_KINDS, INPUT_KINDS, Window, compare_cells
-from .palette import BADGES, TILES
+from .palette import theme_css
+from .vocabulary import OUTCOMES, SCALES, UNITS
 
 __all__ = [
+    "COMPARE_STEP",
     "PAINTS",
+    "VALUE_SCALES",
     "VIEWS",
+    "WIDE_RANGE",
     "GridPaint",
     "Paint",
     "cell_tooltip",
+    "grid_css",
     "grid_html",
     "legend_html",
     "paint_window",
+    "ratio_text",
     "short_label",
 ]
 
 VIEWS = ("value", "class", "cast", "error", "compare")
-STEPS = 3  # tints per side of a scale (few, so that neighbouring steps stay distinguishable)
+VALUE_SCALES = ("auto", "linear", "log", "quantile")  # where the value and error views break
+WIDE_RANGE = 16.0  # "auto": largest / smallest magnitude above this uses the quantile scale
+COMPARE_STEP = 16.0  # compare view: step 2 where one error is at least this many times smaller
+
+_PAGE_FILL = "var(--jp-layout-color0,#ffffff)"
+_PAGE_INK = "var(--jp-content-font-color0,#1f1f1f)"
 
 
 @dataclass(frozen=True)
 class Paint:
-    """One cell colour: its key, fill, text colour, and the legend's words for it."""
+    """One cell colour.
+
+    Attributes:
+        key: the paint's key (also the cell style's key in the widget).
+        background, text: the light-theme colours (hex; the page's for unfilled paints).
+        fill, ink: the CSS values cells use, switched by the theme (``var(--bp-...)``).
+        label: the legend's default words for it.
+    """
 
     key: str
     background: str
     text: str
+    fill: str
+    ink: str
     label: str
 
 
-def _rgb(h: str) -> tuple[float, float, float]:
-    return tuple(int(h[i : i + 2], 16) / 255 for i in (1, 3, 5))  # type: ignore[return-value]
+def _outcome_paint(key: str, label: str | None = None) -> Paint:
+    o = OUTCOMES[key]
+    if o.light.fill is None:
+        return Paint(key, "#ffffff", "#1f1f1f", _PAGE_FILL, _PAGE_INK, label or o.name)
+    return Paint(key, o.light.fill, o.light.text or "#000000",
+                 f"var(--bp-{key}-fill,{o.light.fill})",
+                 f"var(--bp-{key}-text,{o.light.text})", label or o.name)
 
 
-def _hex(rgb: Sequence[float]) -> str:
-    return "#" + "".join(f"{round(min(max(c, 0.0), 1.0) * 255):02x}" for c in rgb)
-
-
-def _mix(colour: str, t: float) -> str:
-    """``colour`` at strength ``t`` over white (t=1: the colour itself)."""
-    return _hex([1 - t * (1 - c) for c in _rgb(colour)])
-
-
-def _luminance(h: str) -> float:
-    # WCAG 2.1 relative luminance
-    def lin(c: float) -> float:
-        return c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4
-
-    r, g, b = (lin(c) for c in _rgb(h))
-    return 0.2126 * r + 0.7152 * g + 0.0722 * b
-
-
-_DARK, _LIGHT = "#1f1f1f", "#ffffff"
-
-
-def _text_on(bg: str) -> str:
-    lb = _luminance(bg)
-    dark = (lb + 0.05) / (_luminance(_DARK) + 0.05)
-    light = (_luminance(_LIGHT) + 0.05) / (lb + 0.05)
-    return _DARK if dark >= light else _LIGHT
-
-
-def _p(key: str, bg: str, label: str, text: str | None = None) -> Paint:
-    return Paint(key, bg, text or _text_on(bg), label)
+def _scale_paint(key: str, hue: str, step: int, label: str) -> Paint:
+    c = SCALES[hue].light[step - 1]
+    assert c.fill is not None and c.text is not None
+    return Paint(key, c.fill, c.text, f"var(--bp-{hue}-{step}-fill,{c.fill})",
+                 f"var(--bp-{hue}-{step}-text,{c.text})", label)
 
 
 def _build_paints() -> dict[str, Paint]:
-    p: dict[str, Paint] = {}
-    for k in ("zero", "subnormal", "normal", "nan"):
-        b = BADGES[k]
-        p[k] = Paint(k, b.background, b.text, b.label)
-    p["inf"] = Paint("inf", BADGES["inf"].background, BADGES["inf"].text, "Inf")
-    # cast classes
-    p["exact"] = _p("exact", _mix(TILES["significand"].background, 0.18), "exact")
-    p["rounded"] = Paint("rounded", BADGES["normal"].background, BADGES["normal"].text, "rounded")
-    p["c-subnormal"] = Paint("c-subnormal", BADGES["subnormal"].background,
-                             BADGES["subnormal"].text, "lands subnormal")
-    p["underflow"] = Paint("underflow", BADGES["zero"].background, BADGES["zero"].text,
-                           "underflows to zero")
-    # overflow is what a cast does, Inf what the input already was: keep them apart
-    p["overflow"] = Paint("overflow", BADGES["overflow"].background, BADGES["overflow"].text,
-                          "overflows")
-    p["invalid"] = Paint("invalid", BADGES["nan"].background, BADGES["nan"].text,
-                         "negative into unsigned (NaN)")
-    # value view: diverging around zero
-    p["v0"] = _p("v0", "#ffffff", "zero")
-    for s in range(1, STEPS + 1):
-        t = s / STEPS
-        p[f"v-{s}"] = _p(f"v-{s}", _mix(TILES["sign"].background, t), f"negative, step {s}")
-        p[f"v+{s}"] = _p(f"v+{s}", _mix(TILES["significand"].background, t), f"positive, step {s}")
-    # error view: heat
-    p["e0"] = _p("e0", "#ffffff", "no error")
-    for s in range(1, STEPS + 1):
-        p[f"e{s}"] = _p(f"e{s}", _mix(TILES["exponent"].background, s / STEPS), f"error, step {s}")
-    # compare view
-    p["tie"] = _p("tie", "#ffffff", "A and B equally close")
-    for s in range(1, 4):
-        t = (s + 1) / 4
-        p[f"a{s}"] = _p(f"a{s}", _mix(TILES["significand"].background, t), f"A closer, step {s}")
-        p[f"b{s}"] = _p(f"b{s}", _mix(TILES["sign"].background, t), f"B closer, step {s}")
+    p: dict[str, Paint] = {k: _outcome_paint(k) for k in OUTCOMES}
+    p["page"] = Paint("page", "#ffffff", "#1f1f1f", _PAGE_FILL, _PAGE_INK, "")
+    p["zero"] = _scale_paint("zero", "grey", 1, "zero")
+    for s in (1, 2):
+        p[f"v-{s}"] = _scale_paint(f"v-{s}", "violet", s, f"negative, step {s}")
+        p[f"v+{s}"] = _scale_paint(f"v+{s}", "teal", s, f"positive, step {s}")
+        p[f"e{s}"] = _scale_paint(f"e{s}", "amber", s, f"error, step {s}")
+        p[f"a{s}"] = _scale_paint(f"a{s}", "teal", s, f"A closer, step {s}")
+        p[f"b{s}"] = _scale_paint(f"b{s}", "violet", s, f"B closer, step {s}")
     return p
 
 
 PAINTS: Mapping[str, Paint] = _build_paints()
 
-# short labels of the class views (the legend says the words)
-_CAST_LABEL = {"exact": "ex", "rounded": "rnd", "subnormal": "sub", "underflow": "→0",
-               "overflow": "OVF", "nan": "NaN", "inf": "Inf", "invalid": "inv"}
-_CAST_PAINT = {"exact": "exact", "rounded": "rounded", "subnormal": "c-subnormal",
-               "underflow": "underflow", "overflow": "overflow", "nan": "nan", "inf": "inf",
-               "invalid": "invalid"}
+# the outcome a cast class is painted with (a cast class is an outcome of the vocabulary)
+_CAST_PAINT = {name: name for name in CAST_KINDS}
+_INPUT_PAINT = {"zero": "zero", "subnormal": "subnormal", "normal": "page", "inf": "inf",
+                "nan": "nan"}
 _INPUT_LABEL = {"zero": "0", "subnormal": "sub", "normal": "nrm", "inf": "Inf", "nan": "NaN"}
+_INPUT_WORDS = {"zero": "zero", "subnormal": "subnormal input", "normal": "normal",
+                "inf": "Inf", "nan": "NaN"}
+
+
+def _mark(name: str) -> str:
+    return OUTCOMES[name].mark
+
+
+def _words(name: str) -> str:
+    """An outcome's mark and name for a legend ("→0 underflow to zero", "NaN")."""
+    o = OUTCOMES[name]
+    return o.name if o.mark == o.name else f"{o.mark} {o.name}"
 
 
 @dataclass(frozen=True)
 class GridPaint:
     """How a window is painted in one view: a paint key, label and tooltip per cell, the
-    legend entries, and a caption (with the scale's range where there is one)."""
+    legend entries (paint key, words), and a caption saying what the colours mean."""
 
     view: str
     keys: tuple[tuple[str, ...], ...]
     labels: tuple[tuple[str, ...], ...]
     tooltips: tuple[tuple[str, ...], ...]
-    legend: tuple[Paint, ...]
+    legend: tuple[tuple[str, str], ...]
     caption: str
 
 
@@ -196,16 +187,73 @@ def _tooltips(w: Window) -> tuple[tuple[str, ...], ...]:
     )
 
 
-def _fmt_num(x: float) -> str:
+def _num(x: float) -> str:
     return f"{x:.3g}"
 
 
-def _steps(mag: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """1..STEPS for magnitudes scaled linearly between lo and hi."""
-    if not hi > lo:
-        return np.full(mag.shape, STEPS, np.int64)
-    t = (mag - lo) / (hi - lo)
-    return np.clip(np.ceil(t * STEPS), 1, STEPS).astype(np.int64)
+def ratio_text(r: float) -> str:
+    """How many times smaller one error is, in one form: 1.3, 7.0, 10, 250, 1e3, ∞."""
+    if math.isinf(r):
+        return "∞"
+    if r < 9.95:
+        return f"{r:.1f}"
+    if r < 999.5:
+        return f"{r:.0f}"
+    m, e = f"{r:.0e}".split("e")
+    return f"{m}e{int(e)}"
+
+
+@dataclass(frozen=True)
+class _Split:
+    """Where a two-step scale breaks: magnitudes up to ``at`` are step 1, above it step 2."""
+
+    at: float
+    scale: str  # the scale used (auto resolved)
+    lo: float
+    hi: float
+
+    def why(self) -> str:
+        return {"linear": "half the largest", "log": "the geometric middle of the smallest "
+                "and largest", "quantile": "the median"}[self.scale]
+
+
+def _split(mag: np.ndarray, scale: str) -> _Split | None:
+    """The break of a scale over positive finite magnitudes (None when there are none)."""
+    if mag.size == 0:
+        return None
+    lo, hi = float(mag.min()), float(mag.max())
+    if scale == "auto":
+        scale = "linear" if hi <= WIDE_RANGE * lo else "quantile"
+    if lo == hi:
+        return _Split(0.0, scale, lo, hi)  # one magnitude: all of it step 2
+    if scale == "linear":
+        at = hi / 2
+    elif scale == "log":
+        at = 2.0 ** ((math.log2(lo) + math.log2(hi)) / 2)
+    else:
+        at = float(np.median(mag))
+        if at >= hi:  # more than half the cells hold the largest: keep it as step 2
+            at = float(mag[mag < hi].max())
+    return _Split(at, scale, lo, hi)
+
+
+def _steps(mag: np.ndarray, split: _Split | None) -> np.ndarray:
+    if split is None:
+        return np.full(mag.shape, 1, np.int64)
+    with np.errstate(invalid="ignore"):
+        return np.where(mag > split.at, 2, 1).astype(np.int64)
+
+
+def _scale_words(split: _Split | None, what: str, unit: str = "") -> tuple[str, str, str]:
+    """(caption part, step-1 words, step-2 words) of a two-step scale."""
+    if split is None:
+        return f"no nonzero {what} in this window", f"{what} (none)", f"{what} (none)"
+    top = f"largest {what} {_num(split.hi)}{unit}"
+    if split.at == 0.0:
+        return (f"one {what} in this window: {_num(split.hi)}{unit}", "(none)", top)
+    caption = (f"{split.scale} scale: steps break at {_num(split.at)}{unit}, {split.why()} "
+               f"{what} of this window ({_num(split.lo)} .. {_num(split.hi)}{unit})")
+    return caption, f"≤ {_num(split.at)}{unit}", f"> {_num(split.at)}{unit} ({top})"
 
 
 def paint_window(
@@ -213,155 +261,201 @@ def paint_window(
     view: str = "cast",
     a: int = 0,
     b: int = 1,
-    log_scale: bool = False,
+    scale: str = "auto",
     unit: str = "ulp",
     tooltips: tuple[tuple[str, ...], ...] | None = None,
 ) -> GridPaint:
-    """Paint a window: ``a``/``b`` index ``w.casts`` (formats A and B)."""
+    """Paint a window: ``a``/``b`` index ``w.casts`` (formats A and B); ``scale`` is where the
+    value and error views break (``VALUE_SCALES``)."""
     if view not in VIEWS:
         raise ValueError(f"view must be one of {', '.join(VIEWS)}; got {view!r}")
+    if scale not in VALUE_SCALES:
+        raise ValueError(f"scale must be one of {', '.join(VALUE_SCALES)}; got {scale!r}")
     tips = tooltips if tooltips is not None else _tooltips(w)
     x = w.values
-    rows, cols = x.shape
     keys = np.empty(x.shape, object)
     labels = np.empty(x.shape, object)
-    legend: list[str] = []
-    caption = ""
     if view == "class":
+        legend = []
         for k, name in enumerate(INPUT_KINDS):
             m = w.kinds == k
-            keys[m] = name
+            keys[m] = _INPUT_PAINT[name]
             labels[m] = _INPUT_LABEL[name]
-        legend = list(INPUT_KINDS)
+            legend.append((_INPUT_PAINT[name], f"{_INPUT_LABEL[name]} {_INPUT_WORDS[name]}"))
         caption = f"class of the input value ({w.dtype})"
     elif view == "value":
-        finite = np.isfinite(x)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            mag = np.abs(x)
-            nz = finite & (mag > 0)
-            if log_scale:
-                lm = np.where(nz, np.log2(np.where(nz, mag, 1.0)), 0.0)
-                lo = float(lm[nz].min()) if nz.any() else 0.0
-                hi = float(lm[nz].max()) if nz.any() else 0.0
-                step = _steps(lm, lo, hi)
-                caption = (f"value, log-magnitude scale: |x| from 2^{lo:.1f} to 2^{hi:.1f} "
-                           "(violet negative, teal positive)")
-            else:
-                hi = float(mag[nz].max()) if nz.any() else 0.0
-                step = _steps(mag, 0.0, hi)
-                caption = (f"value, linear scale: -{_fmt_num(hi)} .. 0 .. {_fmt_num(hi)} "
-                           "(violet negative, teal positive)")
-        with np.errstate(invalid="ignore"):  # NaN cells compare False; painted below
-            sign = np.where(x < 0, "v-", "v+").astype(object)
-            zero = finite & (x == 0)
-        keys[...] = sign + step.astype(str).astype(object)
-        keys[zero] = "v0"
-        keys[np.isinf(x)] = "inf"
-        keys[np.isnan(x)] = "nan"
-        labels[...] = np.array([short_label(v) for v in x.reshape(-1).tolist()],
-                               object).reshape(x.shape)
-        legend = [f"v-{s}" for s in range(STEPS, 0, -1)] + ["v0"] + [
-            f"v+{s}" for s in range(1, STEPS + 1)] + ["nan", "inf"]
+        legend, caption = _paint_value(x, scale, keys, labels)
     elif view == "cast":
         c = w.casts[a]
         for k, name in enumerate(CAST_KINDS):
             m = c.kinds == k
             keys[m] = _CAST_PAINT[name]
-            labels[m] = _CAST_LABEL[name]
-        legend = [_CAST_PAINT[n] for n in CAST_KINDS if n != "invalid" or not c.format.signed]
+            labels[m] = _mark(name)
+        legend = [(n, _words(n)) for n in CAST_KINDS if n != "invalid" or not c.format.signed]
         caption = f"what a cast to {c.format.name} does to each input value"
     elif view == "error":
-        c = w.casts[a]
-        err = c.error(unit)
-        ok = np.isfinite(err)
-        hi = float(err[ok].max()) if ok.any() else 0.0
-        step = _steps(np.where(ok, err, 0.0), 0.0, hi)
-        word = "ULP" if unit == "ulp" else "relative"
-        keys[...] = ("e" + step.astype(str)).astype(object)
-        labels[...] = np.array([short_label(v) for v in err.reshape(-1).tolist()],
-                               object).reshape(x.shape)
-        with np.errstate(invalid="ignore"):  # err is NaN where there is no finite result
-            exact = ok & (err == 0)
-        keys[exact] = "e0"
-        labels[exact] = "0"
-        for k, name in enumerate(CAST_KINDS):  # no finite result: the cell's class
-            m = ~ok & (c.kinds == k)
-            keys[m] = _CAST_PAINT[name]
-            labels[m] = _CAST_LABEL[name]
-        legend = ["e0"] + [f"e{s}" for s in range(1, STEPS + 1)] + [
-            "overflow", "nan", "inf"]
-        caption = (f"cast error of {c.format.name} in {word} units: 0 .. {_fmt_num(hi)} "
-                   f"(largest in this window); cells without a finite result show their class")
-    else:  # compare
-        ca, cb = w.casts[a], w.casts[b]
-        winner, ratio = compare_cells(x, ca, cb)
-        for i in range(rows):
-            for j in range(cols):
-                wv = int(winner[i, j])
-                r = float(ratio[i, j])
-                if wv == -2:
-                    name = CAST_KINDS[int(ca.kinds[i, j])]
-                    if name in ("exact", "rounded", "subnormal", "underflow"):
-                        name = CAST_KINDS[int(cb.kinds[i, j])]
-                    keys[i, j] = _CAST_PAINT[name]
-                    labels[i, j] = _CAST_LABEL[name]
-                elif wv == 0:
-                    keys[i, j], labels[i, j] = "tie", "="
-                else:
-                    s = 1 if r < 4 else (2 if r < 256 else 3)
-                    keys[i, j] = f"{'a' if wv == 1 else 'b'}{s}"
-                    labels[i, j] = ("A" if wv == 1 else "B") + _ratio_text(r)
-        legend = ["a3", "a2", "a1", "tie", "b1", "b2", "b3", "overflow", "nan", "inf"]
-        caption = (f"{ca.format.name} (A) vs {cb.format.name} (B): which lands closer to the "
-                   "input; the label gives how many times smaller its error is "
-                   "(steps: < 4x, < 256x, more)")
+        legend, caption = _paint_error(w, a, scale, unit, keys, labels)
+    else:
+        legend, caption = _paint_compare(w, a, b, keys, labels)
     return GridPaint(
         view,
         tuple(tuple(r) for r in keys.tolist()),
         tuple(tuple(r) for r in labels.tolist()),
         tips,
-        tuple(PAINTS[k] for k in legend),
+        tuple(legend),
         caption,
     )
 
 
-def _ratio_text(r: float) -> str:
-    if math.isinf(r):
-        return "∞"
-    if r < 9.5:
-        return f"{r:.0f}x" if r >= 1.95 else "1x"
-    if r < 999.5:
-        return f"{r:.0f}"
-    return f"{r:.0e}".replace("e+0", "e").replace("e+", "e")
+def _paint_value(x: np.ndarray, scale: str, keys: np.ndarray,
+                 labels: np.ndarray) -> tuple[list[tuple[str, str]], str]:
+    finite = np.isfinite(x)
+    with np.errstate(invalid="ignore"):
+        mag = np.abs(x)
+        nz = finite & (mag > 0)
+        split = _split(mag[nz], scale)
+        step = _steps(np.where(nz, mag, 0.0), split)
+        sign = np.where(x < 0, "v-", "v+").astype(object)
+        zero = finite & (x == 0)
+    keys[...] = sign + step.astype(str).astype(object)
+    keys[zero] = "page"
+    keys[np.isinf(x)] = "inf"
+    keys[np.isnan(x)] = "nan"
+    labels[...] = np.array([short_label(v) for v in x.reshape(-1).tolist()],
+                           object).reshape(x.shape)
+    part, one, two = _scale_words(split, "|x|")
+    legend = [("v-2", f"negative, |x| {two}"), ("v-1", f"negative, |x| {one}"),
+              ("page", "zero"), ("v+1", f"positive, {one}"), ("v+2", f"positive, {two}"),
+              ("nan", "NaN"), ("inf", "Inf")]
+    return legend, f"value (violet negative, teal positive); {part}"
 
 
-# ----- static HTML -------------------------------------------------------------------------------
+def _paint_error(w: Window, a: int, scale: str, unit: str, keys: np.ndarray,
+                 labels: np.ndarray) -> tuple[list[tuple[str, str]], str]:
+    c = w.casts[a]
+    err = c.error(unit)
+    ok = np.isfinite(err)
+    with np.errstate(invalid="ignore"):  # err is NaN where there is no finite result
+        exact = ok & (err == 0)
+    pos = ok & ~exact
+    split = _split(err[pos], scale)
+    step = _steps(np.where(pos, err, 0.0), split)
+    keys[...] = ("e" + step.astype(str)).astype(object)
+    labels[...] = np.array([short_label(v) for v in err.reshape(-1).tolist()],
+                           object).reshape(err.shape)
+    keys[exact] = "page"
+    labels[exact] = "0"
+    shown = []
+    for k, name in enumerate(CAST_KINDS):  # no finite result: the cell's outcome
+        m = ~ok & (c.kinds == k)
+        keys[m] = _CAST_PAINT[name]
+        labels[m] = _mark(name)
+        if m.any():
+            shown.append(name)
+    word = UNITS["ulp"] if unit == "ulp" else "relative"
+    suffix = f" {UNITS['ulp']}" if unit == "ulp" else ""
+    part, one, two = _scale_words(split, "error", suffix)
+    legend = [("page", "0 no error"), ("e1", f"error {one}"), ("e2", f"error {two}")]
+    legend += [(n, f"{_words(n)} (no finite result)") for n in shown]
+    return legend, f"cast error of {c.format.name} in {word} units; {part}"
+
+
+def _paint_compare(w: Window, a: int, b: int, keys: np.ndarray,
+                   labels: np.ndarray) -> tuple[list[tuple[str, str]], str]:
+    x = w.values
+    ca, cb = w.casts[a], w.casts[b]
+    winner, ratio = compare_cells(x, ca, cb)
+    rows, cols = x.shape
+    shown: list[str] = []
+    for i in range(rows):
+        for j in range(cols):
+            wv = int(winner[i, j])
+            if wv == -2:  # not comparable: the outcome that made it so
+                name = CAST_KINDS[int(ca.kinds[i, j])]
+                if name in ("exact", "rounded", "subnormal", "underflow"):
+                    name = CAST_KINDS[int(cb.kinds[i, j])]
+                keys[i, j], labels[i, j] = _CAST_PAINT[name], _mark(name)
+                if name not in shown:
+                    shown.append(name)
+            elif wv == 0:
+                keys[i, j], labels[i, j] = "page", "tie"
+            else:
+                r = float(ratio[i, j])
+                who = "a" if wv == 1 else "b"
+                keys[i, j] = f"{who}{2 if r >= COMPARE_STEP else 1}"
+                labels[i, j] = f"{who.upper()}×{ratio_text(r)}"
+    big = ratio_text(COMPARE_STEP)
+    legend = [("a2", f"A closer, error ×{big} or more smaller (×∞: A exact)"),
+              ("a1", f"A closer, less than ×{big}"), ("page", "tie: equal errors"),
+              ("b1", f"B closer, less than ×{big}"),
+              ("b2", f"B closer, ×{big} or more (×∞: B exact)")]
+    legend += [(n, f"{_words(n)} (not comparable)") for n in shown]
+    caption = (f"{ca.format.name} (A) vs {cb.format.name} (B): which lands closer to the input; "
+               "the label says how many times smaller its error is (A×7: A's error is a "
+               "seventh of B's)")
+    return legend, caption
+
+
+# ----- style block and static HTML ----------------------------------------------------------------
+
+
+def grid_css() -> str:
+    """A ``<style>`` element: the outcome and scale colours for JupyterLab's dark theme, the
+    selected cell's outline in the page's own text colour, and the cells' type."""
+    dark = ";".join(
+        f"--bp-{s.key}-{i}-fill:{c.fill};--bp-{s.key}-{i}-text:{c.text}"
+        for s in SCALES.values() for i, c in enumerate(s.dark, start=1)
+    )
+    rules = (
+        f'body[data-jp-theme-light="false"] .bitprism{{{dark}}}'
+        ".bitprism .bitprism-grid{background:var(--jp-border-color2,#e0e0e0)}"
+        ".bitprism .bitprism-grid .bitprism-cell.jupyter-button{font-family:"
+        "var(--jp-code-font-family,monospace);font-size:11px;padding:0 1px;min-width:0}"
+        ".bitprism .bitprism-grid .bitprism-cell-selected.jupyter-button,"
+        ".bitprism .bitprism-grid .bitprism-cell-selected.jupyter-button:focus{"
+        "outline:2px solid var(--jp-ui-font-color0,#1f1f1f) !important;outline-offset:-2px;"
+        "box-shadow:inset 0 0 0 3px var(--jp-layout-color0,#ffffff)}"
+        ".bitprism .bitprism-head{font-family:var(--jp-code-font-family,monospace);"
+        "font-size:11px;color:var(--jp-ui-font-color1,#57606a)}"
+    )
+    return theme_css() + f"<style>{rules}</style>"
+
 
 _BOX = (
     "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:11px;"
-    "color:#1f2328;background:#ffffff;border:1px solid #d0d7de;border-radius:6px;"
-    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
+    "color:var(--jp-ui-font-color0,#1f2328);background:var(--jp-layout-color0,#ffffff);"
+    "border:1px solid var(--jp-border-color1,#d0d7de);border-radius:6px;"
+    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4;"
+    "box-sizing:border-box"
 )
-_CELL = "min-width:34px;height:22px;text-align:center;padding:0 2px;border:1px solid #ffffff"
-_HEAD = "color:#57606a;text-align:center;padding:0 3px;font-weight:normal"
+_CELL = ("min-width:34px;height:22px;text-align:center;padding:0 2px;"
+         "border:1px solid var(--jp-border-color2,#e0e0e0)")
+_HEAD = ("color:var(--jp-ui-font-color1,#57606a);text-align:center;padding:0 3px;"
+         "font-weight:normal")
+_SELECTED = ";outline:2px solid var(--jp-ui-font-color0,#1f1f1f);outline-offset:-2px"
 
 
 def legend_html(paint: GridPaint) -> str:
-    """The legend: one swatch per colour, each with its words."""
+    """The legend: the caption, then one swatch per colour with its words (wrapping)."""
     items = "".join(
-        f'<span style="display:inline-block;margin:1px 6px 1px 0;white-space:nowrap">'
+        f'<span style="display:inline-block;margin:1px 8px 1px 0">'
         f'<span style="display:inline-block;width:12px;height:12px;vertical-align:middle;'
-        f'background:{p.background};border:1px solid #8c959f"></span> {escape(p.label)}</span>'
-        for p in paint.legend
+        f'background:{PAINTS[key].fill};border:1px solid var(--jp-border-color1,#8c959f)">'
+        f"</span> {escape(words)}</span>"
+        for key, words in paint.legend
     )
-    return (f'<div class="bitprism-legend" style="font-size:11px;margin:4px 0;line-height:1.4">'
-            f'<div>{escape(paint.caption)}</div><div>{items}</div></div>')
+    return (f'<div class="bitprism bitprism-legend" style="font-size:11px;margin:4px 0;'
+            f'line-height:1.4;white-space:normal;overflow-wrap:anywhere">'
+            f'<div class="bitprism-legend-caption">{escape(paint.caption)}</div>'
+            f"<div>{items}</div></div>")
 
 
 def grid_html(w: Window, paint: GridPaint, selected: tuple[int, int] | None = None,
-              summary_html: str = "", title: str = "") -> str:
-    """The window as a self-contained HTML table (inline CSS, no scripts), with its legend and
-    an optional summary above it."""
+              summary_html: str = "", title: str = "", detail_html: str = "",
+              detail_title: str = "") -> str:
+    """The window as a self-contained HTML table (inline CSS, no scripts), with its legend, an
+    optional summary above it and the selected cell's breakdown (``detail_html``, headed by
+    ``detail_title``) below."""
     rows, cols = w.rows, w.cols
     head = "".join(f'<th style="{_HEAD}">{w.col0 + j}</th>' for j in range(cols))
     body = []
@@ -369,10 +463,11 @@ def grid_html(w: Window, paint: GridPaint, selected: tuple[int, int] | None = No
         cells = []
         for j in range(cols):
             p = PAINTS[paint.keys[i][j]]
-            sel = ";outline:2px solid #1f1f1f;outline-offset:-2px" if selected == (i, j) else ""
+            sel = _SELECTED if selected == (i, j) else ""
+            cls = "bitprism-cell bitprism-cell-selected" if sel else "bitprism-cell"
             cells.append(
-                f'<td class="bitprism-cell" title="{escape(paint.tooltips[i][j])}" '
-                f'style="{_CELL};background:{p.background};color:{p.text}{sel}">'
+                f'<td class="{cls}" title="{escape(paint.tooltips[i][j])}" '
+                f'style="{_CELL};background:{p.fill};color:{p.ink}{sel}">'
                 f"{escape(paint.labels[i][j])}</td>"
             )
         r = w.row0 + i if w.row_axis is not None else ""
@@ -385,10 +480,15 @@ def grid_html(w: Window, paint: GridPaint, selected: tuple[int, int] | None = No
     if fixed:
         where += "; " + ", ".join(fixed)
     return (
-        f'<div class="bitprism-tensorprism" style="{_BOX}">'
+        f'<div class="bitprism bitprism-tensorprism" style="{_BOX}">{grid_css()}'
         + (f'<div class="bitprism-summary">{summary_html}</div>' if summary_html else "")
         + f'<div style="margin:4px 0;font-weight:600">{escape(where)}</div>'
         + legend_html(paint)
-        + f'<table class="bitprism-grid" style="border-collapse:collapse">'
+        + '<div style="overflow-x:auto;max-width:100%">'
+        f'<table class="bitprism-grid" style="border-collapse:collapse">'
         f'<thead><tr><th></th>{head}</tr></thead><tbody>{"".join(body)}</tbody></table></div>'
+        + (f'<div class="bitprism-detail" style="margin-top:6px">'
+           f'<div style="font-weight:600;margin:2px 0">{escape(detail_title)}</div>'
+           f"{detail_html}</div>" if detail_html else "")
+        + "</div>"
     )

@@ -33,11 +33,13 @@ __all__ = [
     "LIGHT_PAGE",
     "OUTCOMES",
     "OUTCOME_ORDER",
+    "SCALES",
     "UNITS",
     "WORDS",
     "Colour",
     "Field",
     "Outcome",
+    "Scale",
 ]
 
 LIGHT_PAGE = "#ffffff"  # JupyterLab light theme, --jp-layout-color0
@@ -136,4 +138,40 @@ WORDS: dict[str, str] = {
     "quiet": "quiet NaN",
     "signaling": "signaling NaN",
     "payload": "payload",
+}
+
+
+@dataclass(frozen=True)
+class Scale:
+    """Two steps of one hue, for the views that colour cells by a number (TensorPrism's value,
+    error and compare views; its class view's zero cells take the grey scale's first step).
+
+    Step 0 is the page itself (no fill). In each theme step 1 stands at least 3:1 from the
+    page and step 2 at least 3:1 from step 1 (WCAG 2.1 §1.4.11), and text on either contrasts
+    at least 4.5:1 (§1.4.3): two steps are as many as fit between a page and the far end of
+    the luminance range with 3:1 between neighbours. The hues are the field colours' (the grey
+    is neutral); ``tests/test_tensor_prism.py`` computes the ratios.
+
+    Attributes:
+        key: the hue ("violet", "teal", "amber", "grey"), also the CSS variable suffix.
+        light, dark: (step 1, step 2) colours in JupyterLab's light and dark themes.
+    """
+
+    key: str
+    light: tuple[Colour, Colour]
+    dark: tuple[Colour, Colour]
+
+
+SCALES: dict[str, Scale] = {
+    s.key: s
+    for s in (
+        Scale("violet", (Colour("#917ac5", "#000000"), Colour("#402d6a", "#ffffff")),
+              (Colour("#785cb9", "#ffffff"), Colour("#cec4e5", "#000000"))),
+        Scale("teal", (Colour("#0094a2", "#000000"), Colour("#003f45", "#ffffff")),
+              (Colour("#007882", "#ffffff"), Colour("#7fd6de", "#000000"))),
+        Scale("amber", (Colour("#b97900", "#000000"), Colour("#4e3300", "#ffffff")),
+              (Colour("#956100", "#ffffff"), Colour("#ffbd41", "#000000"))),
+        Scale("grey", (Colour("#878787", "#000000"), Colour("#383838", "#ffffff")),
+              (Colour("#6d6d6d", "#ffffff"), Colour("#c9c9c9", "#000000"))),
+    )
 }

@@ -18,7 +18,9 @@ Cell classes use the words of ``scan()`` (see ``tensors.scan``), with the same d
   ULP of A at the rounded value ``q``; ``relative`` = ``|q - x| / |x|`` (0 where ``x == 0``).
 
 Stochastic rounding draws fresh bits per window and per chunk (seeded from ``seed`` and the
-chunk's position), so a window's cells and a whole-tensor search may draw differently.
+position of the window's first cell, or of the chunk, in the tensor), so a window's cells and a
+whole-tensor search may draw differently, while the same window draws the same wherever it is
+read from (a reopened case's saved block included: ``make_window``'s ``offset``).
 """
 
 from __future__ import annotations
@@ -46,6 +48,7 @@ __all__ = [
     "INPUT_KINDS",
     "MAX_SIDE",
     "CastCells",
+    "Placed",
     "Window",
     "as_tensor",
     "bits_of",
@@ -131,6 +134,27 @@ def input_kinds(a: np.ndarray) -> np.ndarray:
     out[k == CodeClass.INFINITE] = _IN["inf"]
     out[k >= CodeClass.QUIET_NAN] = _IN["nan"]
     return out
+
+
+@dataclass(frozen=True)
+class Placed:
+    """A block of a larger tensor and where it sits: ``array`` holds the elements from tensor
+    index ``offset`` on, of a tensor of ``shape`` (same number of axes). A reopened case's
+    saved window is one, so that its indices are the original tensor's."""
+
+    array: np.ndarray
+    offset: tuple[int, ...]
+    shape: tuple[int, ...]
+
+    def __post_init__(self) -> None:
+        block = tuple(int(s) for s in np.shape(self.array))
+        if not (len(block) == len(self.offset) == len(self.shape)):
+            raise BitprismError(f"a placed block needs one offset and size per axis; got "
+                                f"block {block}, offset {self.offset}, shape {self.shape}")
+        for ax, (o, n, size) in enumerate(zip(self.offset, block, self.shape)):
+            if o < 0 or o + n > size:
+                raise BitprismError(f"a block of {n} from {o} does not fit axis {ax} of size "
+                                    f"{size}")
 
 
 # ----- one cast, cell by cell ----------------------------------------------------------------
@@ -262,6 +286,8 @@ class Window:
             1-D data, which is shown as one row).
         fixed: the index of every axis (entries of the shown axes are ignored).
         row0, col0: index of the first row and column shown.
+        (Indices are the tensor's own, also when the data read is a block of it placed at an
+        offset, as a reopened case holds.)
         raw: the window's data, in the tensor's dtype (rows x cols; fewer at the edges).
         values: exact float64 values; ``bits``: raw bit patterns; ``kinds``: input classes.
         casts: one ``CastCells`` per format, in the order asked.
@@ -342,30 +368,39 @@ def make_window(
     cols: int,
     formats: Sequence[object],
     options: CastOptions,
+    offset: Sequence[int] | None = None,
+    shape: Sequence[int] | None = None,
 ) -> Window:
-    """Read the window (only its cells) and classify it for each format."""
-    shape = tuple(int(s) for s in arr.shape)
-    check_axes(shape, row_axis, col_axis)
+    """Read the window (only its cells) and classify it for each format.
+
+    ``arr`` may be a block of a larger tensor: ``offset`` is the tensor index of its first
+    element and ``shape`` the whole tensor's (both default to ``arr`` itself). Every index
+    given and kept (``fixed``, ``row0``, ``col0``) is the tensor's own; stochastic rounding
+    draws from where the window sits in the tensor.
+    """
+    block = tuple(int(s) for s in arr.shape)
+    off = tuple(int(v) for v in offset) if offset is not None else (0,) * len(block)
+    full = tuple(int(s) for s in shape) if shape is not None else block
+    if len(off) != len(block) or len(full) != len(block):
+        raise BitprismError(f"offset and shape need one entry per axis ({len(block)})")
+    check_axes(full, row_axis, col_axis)
     if not (1 <= rows <= MAX_SIDE and 1 <= cols <= MAX_SIDE):
         raise BitprismError(f"a window is 1..{MAX_SIDE} cells on a side; got {rows} x {cols}")
     fixed = tuple(int(v) for v in fixed)
-    if len(fixed) != len(shape):
-        raise BitprismError(f"fixed needs one index per axis ({len(shape)}); got {fixed!r}")
+    if len(fixed) != len(block):
+        raise BitprismError(f"fixed needs one index per axis ({len(block)}); got {fixed!r}")
     key: list[int | slice] = []
-    for ax, n in enumerate(shape):
+    for ax, n in enumerate(block):
+        lo = off[ax]
         if ax == col_axis:
-            if not 0 <= col0 < n:
-                raise BitprismError(f"column {col0} is out of range for axis {ax} of size {n}")
-            key.append(slice(col0, min(col0 + cols, n)))
+            _check_in(col0, lo, n, f"column {col0}", ax, full[ax])
+            key.append(slice(col0 - lo, min(col0 - lo + cols, n)))
         elif ax == row_axis:
-            if not 0 <= row0 < n:
-                raise BitprismError(f"row {row0} is out of range for axis {ax} of size {n}")
-            key.append(slice(row0, min(row0 + rows, n)))
+            _check_in(row0, lo, n, f"row {row0}", ax, full[ax])
+            key.append(slice(row0 - lo, min(row0 - lo + rows, n)))
         else:
-            if not 0 <= fixed[ax] < n:
-                raise BitprismError(
-                    f"index {fixed[ax]} is out of range for axis {ax} of size {n}")
-            key.append(fixed[ax])
+            _check_in(fixed[ax], lo, n, f"index {fixed[ax]}", ax, full[ax])
+            key.append(fixed[ax] - lo)
     win = np.asarray(arr[tuple(key)])
     if row_axis is None:
         win = win.reshape(1, -1)
@@ -377,13 +412,23 @@ def make_window(
     if row_axis is not None:
         origin[row_axis] = row0
     origin[col_axis] = col0
-    part = flat_index(origin, shape)  # stochastic draws depend on where the window sits
+    part = flat_index(origin, full)  # stochastic draws depend on where the window sits
     casts = tuple(
         cast_cells(raw, get_format(f), options, part)  # type: ignore[arg-type]
         for f in formats
     )
-    return Window(shape, row_axis, col_axis, fixed, int(row0), int(col0), raw, values_of(raw),
+    return Window(full, row_axis, col_axis, fixed, int(row0), int(col0), raw, values_of(raw),
                   bits_of(raw), input_kinds(raw), casts)
+
+
+def _check_in(i: int, lo: int, n: int, what: str, ax: int, size: int) -> None:
+    """``i`` within the ``n`` indices from ``lo`` of an axis of ``size`` (the data held)."""
+    if lo <= i < lo + n:
+        return
+    if lo == 0 and n == size:
+        raise BitprismError(f"{what} is out of range for axis {ax} of size {size}")
+    raise BitprismError(f"{what} is outside the indices {lo}..{lo + n - 1} held of axis {ax} "
+                        f"(size {size})")
 
 
 # ----- whole-tensor passes, chunk by chunk -----------------------------------------------------

@@ -39,7 +39,7 @@ __all__ = [
     "utc_now",
 ]
 
-CASE_SCHEMA = 1  # the schema this version writes and the newest it reads
+CASE_SCHEMA = 2  # the schema this version writes and the newest it reads
 MAX_CASE_BYTES = 8 * 1024 * 1024  # a case file or exported page larger than this is refused
 MAX_JSON_DEPTH = 24  # nesting deeper than any case we write is refused before it is walked
 
@@ -47,6 +47,7 @@ MAX_JSON_DEPTH = 24  # nesting deeper than any case we write is refused before i
 CASE_KINDS: Mapping[str, tuple[str, str]] = {
     "prism": ("bitprism.ui.prism", "Prism"),
     "tensor_prism": ("bitprism.ui.tensor_prism", "TensorPrism"),
+    "probe": ("bitprism.probes.cases", "ProbeCase"),  # a trace's or watch's first event
 }
 
 
@@ -91,8 +92,29 @@ def _migrate_0_to_1(case: dict[str, Any]) -> dict[str, Any]:
     return out
 
 
+def _migrate_1_to_2(case: dict[str, Any]) -> dict[str, Any]:
+    """Schema 1: a TensorPrism's value view had a linear scale or, with ``log_scale`` true, a
+    log-magnitude one; schema 2 names the scale (``value_scale``) and may record the summary
+    and counts the author saw (absent here: a reopened schema-1 case computes them on its
+    saved window and says so). Other fields, and every Prism case, are unchanged."""
+    out = dict(case)
+    state = case.get("state")
+    if out.get("kind") == "tensor_prism" and isinstance(state, dict) and "log_scale" in state:
+        state = {k: v for k, v in state.items() if k != "log_scale"}
+        log_scale = case["state"]["log_scale"]
+        # a value that is not a bool is left for the field check to name
+        state["value_scale"] = ("log" if log_scale else "linear") if isinstance(
+            log_scale, bool) else log_scale
+        out["state"] = state
+    out["bitprism_case"] = 2
+    return out
+
+
 # _MIGRATIONS[v] turns a schema-v case into a schema-(v+1) one; open_case applies them in turn.
-_MIGRATIONS: dict[int, Callable[[dict[str, Any]], dict[str, Any]]] = {0: _migrate_0_to_1}
+_MIGRATIONS: dict[int, Callable[[dict[str, Any]], dict[str, Any]]] = {
+    0: _migrate_0_to_1,
+    1: _migrate_1_to_2,
+}
 
 
 def _json_depth_ok(text: str, limit: int) -> bool:
@@ -223,6 +245,11 @@ def open_case(path: str | os.PathLike[str]) -> Any:
     from traitlets import TraitError
 
     cls = _widget_class(case["kind"])
+    if hasattr(cls, "from_case"):  # a headless record (ProbeCase) reads the whole case itself
+        try:
+            return cls.from_case(case)
+        except BitprismError as exc:
+            raise BitprismError(f"{Path(path).name}: {exc}") from None
     try:
         widget = cls._from_case_state(case["state"])
     except CaseFieldError as exc:

@@ -21,7 +21,12 @@ Protocol for a widget class (``Prism``, ``TensorPrism``) that inherits ``CaseFil
 * ``_static_html(self) -> str``: static markup of the current view, from the render layer.
 * At the end of ``_refresh()`` call ``self._snapshot_changed()``: when the widget is on screen
   this republishes the static snapshot (throttled to one update per ``SNAPSHOT_INTERVAL``
-  seconds, plus a final update), so a saved notebook shows the last view without a kernel.
+  seconds, plus a final update), so nbconvert and static viewers show the last view.
+* ``pin()`` writes the current view into the notebook as static HTML that shows without a
+  kernel, in JupyterLab too (``ui/snapshots.py``).
+
+The note is kept in ``_case_note`` (a widget may make it a property over a trait of its own):
+``save_case``/``export_html`` without ``note=`` keep it, with ``note=`` replace it.
 """
 
 from __future__ import annotations
@@ -33,6 +38,7 @@ from typing import Any, ClassVar
 
 from ..errors import BitprismError
 from ..render.case_page import case_page
+from ..render.widget_html import pinned_html
 from .case_codecs import MAX_NOTE_CHARS, check_utf8, get_format_layout
 from .case_envelope import (
     CASE_KINDS,
@@ -42,7 +48,13 @@ from .case_envelope import (
     open_case,
     utc_now,
 )
-from .snapshots import display_with_snapshot, publish_snapshot, snapshot_changed
+from .snapshots import (
+    display_with_snapshot,
+    pin_here,
+    pin_to_slot,
+    publish_snapshot,
+    snapshot_changed,
+)
 
 __all__ = ["CaseFileMixin", "open_case"]
 
@@ -101,25 +113,45 @@ class CaseFileMixin:
             "state": state,
         }
 
-    def save_case(self, path: str | os.PathLike[str], note: str = "") -> Path:
-        """Write the current view as a case file (JSON); ``bitprism.open_case`` reloads it."""
+    def save_case(self, path: str | os.PathLike[str], note: str | None = None) -> Path:
+        """Write the current view as a case file (JSON); ``bitprism.open_case`` reloads it.
+        ``note`` replaces the widget's note; without it the note is kept (a reopened case's
+        too)."""
         case = self.case(note)
         text = json.dumps(case, indent=1, ensure_ascii=False, allow_nan=False) + "\n"
         if len(text.encode("utf-8")) > MAX_CASE_BYTES:
             raise BitprismError(f"this case would exceed {MAX_CASE_BYTES} bytes; narrow the view")
         p = Path(path)
         p.write_text(text, encoding="utf-8")
-        self._case_note = note
+        self._case_note = case["note"]
         return p
 
     def export_html(self, path: str | os.PathLike[str], note: str | None = None) -> Path:
         """Write one self-contained HTML page (no network, no external files) showing the
-        current view, the note and the options, with the case embedded for ``open_case``."""
+        current view, the note and the options, with the case embedded for ``open_case``.
+        ``note`` as for ``save_case``."""
         case = self.case(note)
         page = case_page(case, self._static_html(), self._case_summary())
         p = Path(path)
         p.write_text(page, encoding="utf-8")
+        self._case_note = case["note"]
         return p
+
+    # -- pins (ui/snapshots.py) --
+    def pin(self) -> None:
+        """Write the current view into the notebook, as a static HTML output of the running
+        cell: a saved notebook shows it without a kernel (JupyterLab, Notebook 7, nbconvert,
+        static viewers), where a live widget shows "model not found"."""
+        pin_here(self)
+
+    def _pin_to_display(self) -> str:
+        """Pin the current view under the widget's own output (for a pin button)."""
+        return pin_to_slot(self)
+
+    def _pinned_html(self) -> str:
+        """The static view a pin writes: a line saying what and when, then the view."""
+        when = utc_now().replace("T", " ").replace("Z", " UTC")
+        return pinned_html(type(self).__name__, when, self._static_html())
 
     # -- static snapshots in notebook outputs (ui/snapshots.py) --
     def _ipython_display_(self) -> None:

@@ -1,10 +1,16 @@
-"""The grid of cell buttons of a ``TensorPrism``: built once per window shape, then reused.
+"""The grid of cell buttons of a ``TensorPrism``: built once, then only repainted.
 
-Each cell is a standard ``Button``; a pan only changes its label, tooltip and shared style, and
-only for cells whose paint changed, each with one short state message (``push_state``). The
-styles are shared by all cells of one colour and have short model ids, so a cell's update
-refers to its colour in a few bytes. A click on a cell calls ``on_click(k)`` with the cell's
-position ``k = i * cols + j`` in the window.
+The cells, the row and column heads and their order in the ``GridBox`` are made for the largest
+window shown so far and kept: a smaller window (a shape change near the tensor's edge, fewer
+rows or columns, other axes) hides the cells it does not use (a shared ``display: none``
+layout) instead of rebuilding the box, and a larger one adds cells once. So the front end
+makes each cell's view once, and a long session leaves nothing behind.
+
+Each cell is a standard ``Button``; a repaint changes its label, tooltip and shared style, only
+for cells whose paint changed, each with one short state message (``push_state``). The styles
+are shared by all cells of one colour and have short model ids, so a cell's update refers to
+its colour in a few bytes. A click on a cell calls ``on_click(i, j)`` with its row and column
+in the window.
 """
 
 from __future__ import annotations
@@ -16,76 +22,110 @@ import ipywidgets as W
 
 from ..render.grid_html import PAINTS, GridPaint
 from ..tensors.window import Window
-from .widget_internals import has_class, push_state, short_model_id
+from .widget_internals import push_state, short_model_id
 
-__all__ = ["CellGrid"]
+__all__ = ["CELL_MAX", "CELL_MIN", "CellGrid"]
+
+CELL_MIN, CELL_MAX = 34, 40  # px: a cell shrinks to fit a narrow column, 5 label characters fit
 
 
 class CellGrid:
-    """The ``GridBox`` of column heads, row heads and cell buttons of one window."""
+    """The ``GridBox`` of column heads, row heads and cell buttons (see the module notes)."""
 
     def __init__(self, on_click: Callable[..., Any]) -> None:
         self._on_click = on_click
-        self.cells: list[W.Button] = []
+        self.cells: list[list[W.Button]] = []  # [row][column], capacity rows x columns
         self.row_heads: list[W.Label] = []
         self.col_heads: list[W.Label] = []
-        self.shape = (0, 0)
+        self.corner = W.Label("")
+        self.shape = (0, 0)  # the window shown
+        self.capacity = (0, 0)  # the cells made
         self.selected_cell: tuple[int, int] | None = None
         self.styles = {
-            k: W.ButtonStyle(button_color=p.background, text_color=p.text,
-                             model_id=short_model_id())
+            k: W.ButtonStyle(button_color=p.fill, text_color=p.ink, model_id=short_model_id())
             for k, p in PAINTS.items()
         }
-        self.cell_layout = W.Layout(width="40px", height="24px", padding="0", margin="0")
-        self.selected_layout = W.Layout(width="40px", height="24px", padding="0", margin="0",
-                                        border="2px solid #1f1f1f")
-        self._shown: list[tuple[str, str, str]] = []  # (label, tooltip, paint key) per cell
-        self.box = W.GridBox(layout=W.Layout(grid_gap="1px", overflow="auto", max_width="100%"))
+        self.cell_layout = W.Layout(width="auto", height="24px", padding="0", margin="0")
+        self.head_layout = W.Layout(width="auto", margin="0 3px", justify_content="center")
+        self.hidden_layout = W.Layout(display="none")
+        self._shown: dict[tuple[int, int], tuple[str, str, str]] = {}
+        self._visible: dict[int, bool] = {}  # id(cell or head) -> shown
+        self.box = W.GridBox(layout=W.Layout(grid_gap="1px", padding="1px", width="fit-content",
+                                             max_width="100%", overflow="auto"))
         self.box.add_class("bitprism-grid")
 
-    def _ensure(self, rows: int, cols: int) -> None:
-        """Cells and heads for a ``rows`` x ``cols`` window (buttons are kept for reuse)."""
-        if self.shape == (rows, cols):
+    def _cell(self, i: int, j: int, visible: bool) -> W.Button:
+        b = W.Button(description="", style=self.styles["page"],
+                     layout=self.cell_layout if visible else self.hidden_layout)
+        b.add_class("bitprism-cell")
+        b.on_click(functools.partial(self._on_click, i, j))
+        self._visible[id(b)] = visible
+        return b
+
+    def _head(self, visible: bool) -> W.Label:
+        h = W.Label(layout=self.head_layout if visible else self.hidden_layout)
+        h.add_class("bitprism-head")
+        self._visible[id(h)] = visible
+        return h
+
+    def _grow(self, rows: int, cols: int) -> None:
+        """Make cells for a ``rows`` x ``cols`` window (never fewer than made already); new
+        ones start shown when that window uses them."""
+        R, C = max(rows, self.capacity[0]), max(cols, self.capacity[1])
+        if (R, C) == self.capacity:
             return
-        need = rows * cols
-        while len(self.cells) < need:
-            k = len(self.cells)
-            b = W.Button(description="", layout=self.cell_layout, style=self.styles["rounded"])
-            b.add_class("bitprism-cell")
-            b.on_click(functools.partial(self._on_click, k))
-            self.cells.append(b)
-        while len(self.row_heads) < rows:
-            self.row_heads.append(W.Label(layout=W.Layout(width="auto", margin="0 4px 0 0")))
-        while len(self.col_heads) < cols:
-            self.col_heads.append(W.Label(layout=W.Layout(width="40px", justify_content="center")))
-        self.selected_cell = None
-        for b in self.cells:
-            if b.layout is not self.cell_layout:
-                b.layout = self.cell_layout
-            if has_class(b, "bitprism-cell-selected"):
-                b.remove_class("bitprism-cell-selected")
-        children: list[W.Widget] = [W.Label("")] + self.col_heads[:cols]
-        for i in range(rows):
+        for i in range(R):
+            if i == len(self.cells):
+                self.cells.append([])
+            while len(self.cells[i]) < C:
+                j = len(self.cells[i])
+                self.cells[i].append(self._cell(i, j, i < rows and j < cols))
+        while len(self.row_heads) < R:
+            self.row_heads.append(self._head(len(self.row_heads) < rows))
+        while len(self.col_heads) < C:
+            self.col_heads.append(self._head(len(self.col_heads) < cols))
+        children: list[W.Widget] = [self.corner, *self.col_heads]
+        for i in range(R):
             children.append(self.row_heads[i])
-            children.extend(self.cells[i * cols : (i + 1) * cols])
-        self.box.layout.grid_template_columns = f"auto repeat({cols}, 40px)"
-        self.box.children = children
+            children.extend(self.cells[i])
+        self.box.children = children  # the only time the front end makes these views
+        self.capacity = (R, C)
+
+    def _set_visible(self, w: W.DOMWidget, shown: W.Layout, visible: bool) -> None:
+        if self._visible[id(w)] != visible:
+            push_state(w, {"layout": shown if visible else self.hidden_layout})
+            self._visible[id(w)] = visible
+
+    def _reshape(self, rows: int, cols: int) -> None:
+        """Show the first ``rows`` x ``cols`` cells; hide the others (kept for later)."""
+        if (rows, cols) == self.shape:
+            return
+        self._select(None)
+        R, C = self.capacity
+        for i in range(R):
+            self._set_visible(self.row_heads[i], self.head_layout, i < rows)
+            for j in range(C):
+                self._set_visible(self.cells[i][j], self.cell_layout, i < rows and j < cols)
+        for j in range(C):
+            self._set_visible(self.col_heads[j], self.head_layout, j < cols)
+        track = f"repeat({cols}, minmax({CELL_MIN}px, {CELL_MAX}px))"
+        self.box.layout.grid_template_columns = f"max-content {track}"
         self.shape = (rows, cols)
-        self._shown = [("", "", "")] * need
 
     def show(self, w: Window, paint: GridPaint, selected: tuple[int, int] | None) -> None:
         """Paint the window; ``selected`` is the (row, column) of the selected cell, if shown."""
         rows, cols = w.rows, w.cols
-        self._ensure(rows, cols)
+        self._grow(rows, cols)
+        self._reshape(rows, cols)
         shown = self._shown
         styles = self.styles
+        blank = ("", "", "")
         for i in range(rows):
             keys, labels, tips = paint.keys[i], paint.labels[i], paint.tooltips[i]
-            base = i * cols
+            row = self.cells[i]
             for j in range(cols):
-                k = base + j
                 new = (labels[j], tips[j], keys[j])
-                old = shown[k]
+                old = shown.get((i, j), blank)
                 if new == old:
                     continue
                 ch: dict[str, Any] = {}
@@ -95,8 +135,8 @@ class CellGrid:
                     ch["tooltip"] = new[1]
                 if new[2] != old[2]:
                     ch["style"] = styles[new[2]]
-                push_state(self.cells[k], ch)
-                shown[k] = new
+                push_state(row[j], ch)
+                shown[(i, j)] = new
         for i in range(rows):
             text = str(w.row0 + i) if w.row_axis is not None else ""
             if self.row_heads[i].value != text:
@@ -105,18 +145,27 @@ class CellGrid:
             text = str(w.col0 + j)
             if self.col_heads[j].value != text:
                 push_state(self.col_heads[j], {"value": text})
-        self._select(selected, cols)
+        self._select(selected)
 
-    def _select(self, sel: tuple[int, int] | None, cols: int) -> None:
-        """The selected cell: outlined, and a CSS class for the page."""
+    def cell(self, i: int, j: int) -> W.Button:
+        """The button of window cell (i, j)."""
+        return self.cells[i][j]
+
+    def _select(self, sel: tuple[int, int] | None) -> None:
+        """The selected cell carries the CSS class that outlines it."""
         if sel == self.selected_cell:
             return
         if self.selected_cell is not None:
-            b = self.cells[self.selected_cell[0] * cols + self.selected_cell[1]]
-            b.layout = self.cell_layout
-            b.remove_class("bitprism-cell-selected")
+            self.cell(*self.selected_cell).remove_class("bitprism-cell-selected")
         if sel is not None:
-            b = self.cells[sel[0] * cols + sel[1]]
-            b.layout = self.selected_layout
-            b.add_class("bitprism-cell-selected")
+            self.cell(*sel).add_class("bitprism-cell-selected")
         self.selected_cell = sel
+
+    def widgets(self) -> list[W.Widget]:
+        """Every widget this grid made (for closing)."""
+        out: list[W.Widget] = [self.box, self.corner, *self.row_heads, *self.col_heads,
+                               self.cell_layout, self.head_layout, self.hidden_layout,
+                               *self.styles.values()]
+        for row in self.cells:
+            out.extend(row)
+        return out

@@ -1,25 +1,28 @@
-"""``Prism``: one value refracted into several formats side by side, live.
+"""``Prism``: one value refracted into several formats, drawn on one power-of-two ruler.
 
-State lives in traits; every reaction goes through one ``_refresh()``; all computing is done
-by ``numerics.compare`` and all markup by ``render.compare_html`` (the widget has no renderer of
-its own: its bands are ``HTML`` widgets holding that markup, plus standard buttons per bit).
-Standard ipywidgets only, no custom JavaScript. Errors in callbacks are shown in the message
-area, never raised into the notebook.
+Every format is a band on a shared ruler (columns are weights 2^k): its verdict first, in
+words, then its bits under their weights, the stored value (shortest and exact decimal), the
+errors, and the raw encoding as one small button per bit (click to flip). One toolbar acts on
+the selected band (click a band's name to select it). State lives in traits; every reaction
+goes through one ``_refresh()``; all computing is done by ``numerics.compare`` and all markup by
+``render`` (``compare_html``, ``ruler_html``, ``verdicts``). Standard ipywidgets only, no custom
+JavaScript. Errors in callbacks are shown in the message area, never raised into the notebook.
+Bands are built once per format and closed when their format goes (``prism_bands``).
 """
 
 from __future__ import annotations
 
 import functools
-from functools import cached_property
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import ipywidgets as W
 from traitlets import Any as AnyTrait
 from traitlets import TraitError, observe, validate
 
-from .guarded import BatchedRefresh, guarded, message_for
 from ..errors import BitprismError, ParseError
+from .guarded import BatchedRefresh, guarded, message_for
 from ..formats import FORMATS, Format, get_format
 from ..numerics.codes import native_code
 from ..numerics.compare import DEFAULT_FORMATS, Comparison, FormatRow, compare_exact
@@ -29,16 +32,23 @@ from ..numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES
 from ..numerics.parse import parse, parse_bits
 from ..numerics.scalar import decode_exact
 from ..render.compare_html import (
-    aligned_html,
-    band_html,
+    band_detail_html,
+    caption_html,
     evaluations_html,
     header_html,
+    prism_css,
+    raw_fields_html,
+    verdict_html,
 )
-from ..render.palette import button_colors
+from ..render.palette import theme_css
+from ..render.ruler_html import make_ruler
+from ..render.verdicts import neighbour_text
+from ..render.vocabulary import WORDS
 from ..render.widget_html import message_html
 from . import prism_case
 from .case_file import CaseFileMixin
 from .cast_settings import CastSettings, check_formats, formats_argument
+from .prism_bands import Band, SharedLooks, Toolbar
 from .refusal import (
     BoolTrait,
     IntTrait,
@@ -46,13 +56,15 @@ from .refusal import (
     TextTrait,
     ValueTrait,
     WidgetValueError,
+    check_seed,
     refusal,
 )
 
 __all__ = ["Prism"]
 
-_VIA_CHOICES = (("direct", ""), ("through float32", "float32"))
-_FIELD_ROLES = ("sign", "exponent", "significand")
+# The rounding path: one correct rounding from the exact value, or through float32 first
+# (double rounding made visible). Other formats set from code get an entry of their own.
+_PATHS = (("one rounding", ""), ("through float32 first", "float32"))
 
 
 @dataclass(frozen=True)
@@ -66,9 +78,10 @@ class _View:
     comparison: Comparison
     formats: tuple[Format, ...]
     header: str
-    bands: tuple[str, ...]
+    verdicts: tuple[str, ...]
+    details: tuple[str, ...]
+    fields: tuple[str, ...]
     bits: tuple[str, ...]
-    aligned: str
     evaluation: str
 
     @cached_property
@@ -80,77 +93,9 @@ class _View:
         return self.comparison.to_html()
 
 
-class _Band:
-    """The widgets of one format's band (rebuilt only when the format list changes)."""
-
-    def __init__(self, prism: "Prism", fmt: Format, index: int) -> None:
-        self.format = fmt
-        self.html = W.HTML()
-        self.bits: list[W.Button] = []
-        bit_layout = prism._bit_layout
-        children: list[W.Widget] = []
-        s, w, t = fmt.sign_bits, fmt.exponent_bits, fmt.significand_bits
-        roles = ["sign"] * s + ["exponent"] * w + ["significand"] * t
-        self.implicit = self._implicit(prism)
-        for pos, role in enumerate(roles):
-            if pos == s + w:
-                children.append(self.implicit)  # between exponent and trailing significand
-            bit_number = fmt.bits - 1 - pos  # weight of this bit in the code
-            b = W.Button(
-                description="0",
-                tooltip=f"{fmt.name} bit {bit_number}: {role} (click to flip)",
-                layout=bit_layout,
-                style=prism._bit_styles[role],
-            )
-            b.add_class("bitprism-bit")
-            b.add_class(f"bitprism-{role}")
-            b.on_click(functools.partial(prism._on_bit_click, index, bit_number))
-            self.bits.append(b)
-            children.append(b)
-        if t == 0:
-            children.append(self.implicit)
-        self.bit_row = W.HBox(children, layout=W.Layout(flex_flow="row wrap"))
-        self.down = self._button("next down", "the value below, in this format", prism, index, "down")
-        self.up = self._button("next up", "the value above, in this format", prism, index, "up")
-        self.largest = self._button("largest", "largest finite value", prism, index, "largest")
-        self.normal = self._button("min normal", "smallest normal value", prism, index, "normal")
-        self.subnormal = self._button(
-            "min subnormal", "smallest subnormal value", prism, index, "subnormal"
-        )
-        self.remove = self._button("remove", f"remove {fmt.name}", prism, index, "remove")
-        nav = W.HBox([self.down, self.up, self.largest, self.normal, self.subnormal, self.remove])
-        self.box = W.VBox([self.html, self.bit_row, nav])
-        self.box.add_class("bitprism-band")
-
-    @staticmethod
-    def _implicit(prism: "Prism") -> W.Button:
-        b = W.Button(
-            description="1",
-            tooltip="implicit leading bit (not stored)",
-            disabled=True,
-            layout=prism._implicit_layout,
-        )
-        b.add_class("bitprism-implicit")
-        return b
-
-    @staticmethod
-    def _button(label: str, tip: str, prism: "Prism", index: int, action: str) -> W.Button:
-        b = W.Button(description=label, tooltip=tip, layout=prism._nav_layout)
-        b.add_class(f"bitprism-{action}")
-        b.on_click(functools.partial(prism._on_nav_click, index, action))
-        return b
-
-    def show(self, html: str, bits: str, row: FormatRow) -> None:
-        self.html.value = html
-        for b, ch in zip(self.bits, bits):
-            if b.description != ch:  # skip the trait machinery for unchanged bits
-                b.description = ch
-        kind = row.fields.kind
-        self.implicit.description = "0" if kind in (0, 1) else ("1" if kind == 2 else "·")
-
-
 class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
-    """One value refracted into several formats: bit tiles, fields, stored value, errors.
+    """One value refracted into several formats on one power-of-two ruler: a verdict per
+    format, its bits under their weights, stored value, errors and raw bits.
 
     ``Prism(value="0.1", formats=["float32", "bfloat16"])``; ``prism.value = np.float32(x)``
     (numbers are kept as exact text); ``prism.comparison`` is the current ``Comparison``.
@@ -172,14 +117,20 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     subnormals = TextTrait("keep", help="'keep' subnormal results or 'flush' them to zero")
     seed = IntTrait(None, allow_none=True,
                     help="seed of stochastic rounding, 0..2**63-1 (None: fresh draws)")
-    via = TextTrait("", help="format the input is rounded to first ('' = direct), e.g. 'float32'")
-    aligned = BoolTrait(True, help="show the weight-aligned view under the bands")
+    via = TextTrait("", help="the rounding path: '' rounds once from the exact value; a format "
+                    "name (e.g. 'float32') rounds to it first (double rounding)")
+    aligned = BoolTrait(True, help="draw every band on the power-of-two ruler")
     source_format = TextTrait(
         "", help="the band whose bit pattern is the source ('' = the typed value is)"
     )
     source_code = IntTrait(None, allow_none=True, help="bit pattern of the source band, if any")
     expression = TextTrait("", help="expression computed with per-format arithmetic")
+    selected = TextTrait("", help="the band the toolbar and the bits box act on ('' = the first)")
     message = TextTrait("", help="the last error or note shown to the person")
+    compact = BoolTrait(
+        False, help="bands only: no input rows, option controls or add-format menu (the bands, "
+        "their verdicts and raw bits stay), e.g. the value view embedded in a TensorPrism")
+    caption = TextTrait("", help="a line shown above the bands (plain text), e.g. the cell shown")
     comparison = AnyTrait(None, read_only=True, help="the current Comparison (read-only)")
 
     _view_traits = ("value", "formats", "rounding", "overflow", "subnormals", "seed", "via",
@@ -189,7 +140,7 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         unknown = [k for k in kwargs if k not in self.class_trait_names() or k == "comparison"]
         if unknown:
             raise BitprismError(f"Prism has no option {unknown[0]!r}; options: value, formats, "
-                                f"{', '.join(self._view_traits[2:])}")
+                                f"{', '.join(self._view_traits[2:])}, selected, compact, caption")
         format_list = formats_argument(formats)
         self._suspend = 0
         self._view: _View | None = None  # what is shown: the last view that could be built
@@ -197,23 +148,15 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         # the number the value came from, when it was one (a numpy scalar keeps its own bits
         # in its own format: a signaling NaN stays signaling there), under the same text
         self._number: tuple[str, Any] | None = None
-        self._bands: list[_Band] = []
-        self._band_formats: list[Format] = []
-        self._bit_layout = W.Layout(width="22px", height="22px", padding="0", margin="0 1px")
-        self._implicit_layout = W.Layout(
-            width="22px", height="22px", padding="0", margin="0 1px", border="1px dashed"
-        )
-        self._nav_layout = W.Layout(width="auto", height="24px")
-        self._bit_styles = {}
-        for role in _FIELD_ROLES:
-            fill, text = button_colors(role)
-            self._bit_styles[role] = W.ButtonStyle(button_color=fill, text_color=text)
+        self._bands: list[Band] = []
+        self._looks = SharedLooks()
         self._build_controls()
         self._suspend = 1  # one refresh after every initial trait is in place
         try:
             super().__init__(**kwargs)
             self._suspend = 0
             self.add_class("bitprism-prism")
+            self.add_class("bitprism")  # the outcome colours' theme switch applies inside
             with self._bulk():
                 self.value = value
                 if format_list is not None:
@@ -223,64 +166,105 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
 
     # ----- controls --------------------------------------------------------------------------
     def _build_controls(self) -> None:
+        wide = {"description_width": "initial"}
         self.value_input = W.Text(
             value="", placeholder="value or expression, e.g. 0.1, 0x1.8p-3, 1/3, 2**-24",
-            description="value", continuous_update=False, layout=W.Layout(width="420px"),
+            description="value", continuous_update=False, style=wide,
+            layout=W.Layout(width="auto", flex="1 1 260px", min_width="200px"),
         )
         self.value_input.add_class("bitprism-value-input")
         self.value_input.observe(self._on_value_text, "value")
-        self.bits_format = W.Dropdown(options=[], description="bits of", layout=W.Layout(width="240px"))
+        self.bits_format = W.Dropdown(options=[], description="bits of", style=wide,
+                                      layout=W.Layout(width="auto", max_width="220px"))
+        self.bits_format.observe(self._on_bits_format, "value")
         self.bits_input = W.Text(
-            value="", placeholder="0x3c00 or 0b0_01111_0000000000",
-            continuous_update=False, layout=W.Layout(width="300px"),
+            value="", placeholder="0x3c00 or 0b0_01111_0000000000", continuous_update=False,
+            layout=W.Layout(width="auto", flex="1 1 180px", min_width="160px"),
         )
         self.bits_input.add_class("bitprism-bits-input")
         self.bits_input.observe(self._on_bits_text, "value")
-        self.rounding_menu = W.Dropdown(options=list(ROUNDING_MODES), description="rounding")
-        self.seed_input = W.IntText(value=0, description="seed", layout=W.Layout(width="160px"))
-        self.overflow_menu = W.Dropdown(options=list(OVERFLOW_MODES), description="overflow")
-        self.subnormals_menu = W.Dropdown(options=list(SUBNORMAL_MODES), description="subnormals")
-        self.via_menu = W.Dropdown(options=list(_VIA_CHOICES), description="via")
-        self.aligned_box = W.Checkbox(value=True, description="weight-aligned view", indent=False)
+        small = W.Layout(width="auto", max_width="230px")
+        self.rounding_menu = W.Dropdown(options=list(ROUNDING_MODES), description="rounding",
+                                        style=wide, layout=small)
+        self.seed_input = W.Text(value="none", description="seed", continuous_update=False,
+                                 style=wide, layout=W.Layout(width="150px"),
+                                 placeholder="none or 0..2**63-1")
+        self.seed_input.add_class("bitprism-seed")
+        self.overflow_menu = W.Dropdown(options=list(OVERFLOW_MODES), description="overflow",
+                                        style=wide, layout=small)
+        self.subnormals_menu = W.Dropdown(options=list(SUBNORMAL_MODES),
+                                          description="subnormals", style=wide, layout=small)
+        self.path_menu = W.Dropdown(options=list(_PATHS), description="rounding path",
+                                    style=wide, layout=W.Layout(width="310px"))
+        self.aligned_box = W.Checkbox(value=True, description="ruler", indent=False,
+                                      layout=W.Layout(width="auto"))
         for widget, name in (
             (self.rounding_menu, "rounding"),
             (self.overflow_menu, "overflow"),
             (self.subnormals_menu, "subnormals"),
-            (self.via_menu, "via"),
+            (self.path_menu, "via"),
             (self.aligned_box, "aligned"),
         ):
             widget.observe(functools.partial(self._on_control, name), "value")
         self.seed_input.observe(self._on_seed, "value")
         self.add_format_menu = W.Dropdown(
-            options=[("add format…", "")] + [(n, n) for n in FORMATS], layout=W.Layout(width="220px")
+            options=[("add format…", "")] + [(n, n) for n in FORMATS],
+            layout=W.Layout(width="auto", max_width="200px"),
         )
         self.add_format_menu.observe(self._on_add_format, "value")
         self.expression_input = W.Text(
             value="", placeholder="e.g. 2048 + 1", description="compute",
-            continuous_update=False, layout=W.Layout(width="420px"),
+            continuous_update=False, style=wide,
+            layout=W.Layout(width="auto", flex="1 1 260px", min_width="200px"),
         )
         self.expression_input.add_class("bitprism-expression-input")
         self.expression_input.observe(self._on_expression_text, "value")
         self.message_html = W.HTML()
         self.message_html.add_class("bitprism-message")
+        self.caption_html = W.HTML()
+        self.caption_html.add_class("bitprism-caption")
         self.header_html = W.HTML()
-        self.aligned_html = W.HTML()
+        self.header_html.add_class("bitprism-header-view")
         self.evaluation_html = W.HTML()
         self.bands_box = W.VBox()
+        # the header's ruler rows sit in a box inset like a band's, so their columns line up
+        self._header_box = W.VBox([self.header_html], layout=W.Layout(
+            margin="2px 0 2px 0", padding="0 0 0 6px", border_left="3px solid transparent"))
+        self.toolbar = Toolbar(self._on_action)
+        wrap = W.Layout(flex_flow="row wrap", align_items="center")
+        self._rows = [
+            W.HBox([self.value_input, self.add_format_menu], layout=wrap),
+            W.HBox([self.bits_format, self.bits_input], layout=wrap),
+            W.HBox([self.rounding_menu, self.seed_input, self.overflow_menu,
+                    self.subnormals_menu, self.path_menu, self.aligned_box],
+                   layout=W.Layout(flex_flow="row wrap", align_items="center")),
+        ]
+        self._compute_row = W.HBox([self.expression_input], layout=W.Layout(flex_flow="row wrap"))
 
     def _layout_children(self) -> None:
+        if self.compact:
+            self.children = [self.message_html, self.caption_html, self._header_box,
+                             self.bands_box]
+            return
         self.children = [
-            W.HBox([self.value_input, self.add_format_menu]),
-            W.HBox([self.bits_format, self.bits_input]),
-            W.HBox([self.rounding_menu, self.seed_input]),
-            W.HBox([self.overflow_menu, self.subnormals_menu, self.via_menu, self.aligned_box]),
+            *self._rows,
             self.message_html,
-            self.header_html,
+            self.caption_html,
+            self._header_box,
+            self.toolbar.box,
             self.bands_box,
-            self.aligned_html,
-            self.expression_input,
+            self._compute_row,
             self.evaluation_html,
         ]
+
+    @observe("compact")
+    def _on_compact(self, change: Any) -> None:
+        if self.children:
+            self._layout_children()
+
+    @observe("caption")
+    def _on_caption(self, change: Any) -> None:
+        self.caption_html.value = caption_html(change["new"])
 
     # ----- validation ------------------------------------------------------------------------
     def _read(self, text: str) -> ExactValue:
@@ -348,6 +332,11 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     def _on_trait(self, change: Any) -> None:
         self._refresh()
 
+    @observe("selected")
+    def _on_selected(self, change: Any) -> None:
+        if self._view is not None and not self._suspend:
+            self._show_selection(self._view)
+
     def _refresh(self) -> None:
         """The one path from traits to what is shown. A state whose view cannot be built is
         refused: the traits go back to the last good view's, which stays, and the message (and,
@@ -361,9 +350,8 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
         self._view = view
         self.set_trait("comparison", view.comparison)
         self.message = ""
-        fmts = list(view.formats)
-        if fmts != self._band_formats:
-            self._rebuild_bands(fmts)
+        if [b.format for b in self._bands] != list(view.formats):
+            self._rebuild_bands(list(view.formats))
         self._show(view)
         self._remember_good_view()
         self._snapshot_changed()
@@ -397,37 +385,71 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
 
             evaluation = evaluations_html(
                 [evaluate(self.expression, f, options=options) for f in fmts])
+        ruler = make_ruler(c) if self.aligned else None
         return _View(
             comparison=c,
             formats=tuple(fmts),
-            header=header_html(c),
-            bands=tuple(band_html(c, row, tiles=False) for row in c.rows),
+            header=theme_css() + prism_css() + header_html(c, ruler),
+            verdicts=tuple(verdict_html(c, row, name=False) for row in c.rows),
+            details=tuple(band_detail_html(c, row, ruler) for row in c.rows),
+            fields=tuple(raw_fields_html(row) for row in c.rows),
             bits=tuple(row.bits() for row in c.rows),
-            aligned=aligned_html(c) if self.aligned else "",
             evaluation=evaluation,
         )
 
     def _rebuild_bands(self, fmts: list[Format]) -> None:
-        self._bands = [_Band(self, f, i) for i, f in enumerate(fmts)]
-        self._band_formats = list(fmts)
-        self.bands_box.children = [b.box for b in self._bands]
-        current = self.bits_format.value
-        self.bits_format.options = [f.name for f in fmts]
-        if current in self.bits_format.options:
-            self.bits_format.value = current
+        """Bands for added formats are built, bands of removed ones closed (with every widget
+        under them), the others kept as they are."""
+        old = {b.format: b for b in self._bands}
+        bands = []
+        for f in fmts:
+            band = old.pop(f, None)
+            bands.append(band if band is not None else
+                         Band(self._looks, f, self._on_select, self._on_bit_click))
+        self._bands = bands
+        self.bands_box.children = [b.box for b in bands]
+        for gone in old.values():
+            gone.close()
+        self._suspend += 1
+        try:
+            self.bits_format.options = [f.name for f in fmts]
+        finally:
+            self._suspend -= 1
         if not self.children:
             self._layout_children()
 
     def _show(self, view: _View) -> None:
         self.header_html.value = view.header
-        for band, row, html, bits in zip(self._bands, view.comparison.rows, view.bands, view.bits):
-            band.show(html, bits, row)
-            band.box.layout.border = (
-                "2px solid #6f51b4" if row.format.name == self.source_format else ""
-            )
-        self.aligned_html.value = view.aligned
+        for band, verdict, detail, fields, bits in zip(
+                self._bands, view.verdicts, view.details, view.fields, view.bits):
+            band.show(verdict, detail, fields, bits)
+        self._show_selection(view)
         self._sync_controls()
         self.evaluation_html.value = view.evaluation
+
+    def selected_row(self) -> FormatRow:
+        """The row of the selected band (the first band when none is selected)."""
+        c = self.comparison
+        for row in c.rows:
+            if row.format.name == self.selected:
+                return row  # type: ignore[no-any-return]
+        return c.rows[0]  # type: ignore[no-any-return]
+
+    def _show_selection(self, view: _View) -> None:
+        row = self.selected_row()
+        for band in self._bands:
+            band.select(band.format == row.format)
+        self.toolbar.show(
+            f'<span style="font-size:12px">selected <b>{row.format.name}</b>:</span>',
+            {"down": f"{WORDS['down']}: {neighbour_text(row, 'down')}",
+             "up": f"{WORDS['up']}: {neighbour_text(row, 'up')}",
+             "remove": f"remove {row.format.name} from this Prism"})
+        self._suspend += 1
+        try:
+            if self.bits_format.value != row.format.name:
+                self.bits_format.value = row.format.name
+        finally:
+            self._suspend -= 1
 
     def _sync_controls(self) -> None:
         self._suspend += 1
@@ -436,10 +458,14 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             self.rounding_menu.value = self.rounding
             self.overflow_menu.value = self.overflow
             self.subnormals_menu.value = self.subnormals
-            self.via_menu.value = self.via if self.via in ("", "float32") else ""
+            paths = list(_PATHS)
+            if self.via and self.via not in [v for _, v in paths]:
+                paths.append((f"through {self.via} first", self.via))
+            if list(self.path_menu.options) != paths:
+                self.path_menu.options = paths
+            self.path_menu.value = self.via
             self.aligned_box.value = self.aligned
-            if self.seed is not None:
-                self.seed_input.value = self.seed
+            self.seed_input.value = "none" if self.seed is None else str(self.seed)
         finally:
             self._suspend -= 1
 
@@ -474,12 +500,19 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     def _on_bits_text(self, change: Any) -> None:
         if self._suspend or not change["new"].strip():
             return
-        self.submit_bits(change["new"], self.bits_format.value)
+        self.submit_bits(change["new"], self.bits_format.value or self.selected_row().format)
 
-    def submit_bits(self, text: str, fmt: Any) -> None:
-        """Set one band's raw bit pattern; the others follow from its exact value. On error
-        the last view stays and the message says why."""
-        f = self.shown_format(fmt)
+    @guarded
+    def _on_bits_format(self, change: Any) -> None:
+        if self._suspend or not change["new"]:
+            return
+        self.selected = change["new"]  # "bits of" and the toolbar act on one band
+
+    def submit_bits(self, text: str, fmt: Any = None) -> None:
+        """Set one band's raw bit pattern (``fmt``: a shown format; None: the selected band);
+        the others follow from its exact value. On error the last view stays and the message
+        says why."""
+        f = self.selected_row().format if fmt is None else self.shown_format(fmt)
         try:
             code = parse_bits(text, f)
         except ParseError as exc:
@@ -503,14 +536,32 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
             self.source_format = f.name
             self.source_code = code
 
-    @guarded
-    def _on_bit_click(self, index: int, bit: int, button: Any = None) -> None:
-        row = self.comparison.rows[index]
-        self.set_source(row.format, row.code ^ (1 << bit))
+    def select(self, fmt: Any) -> None:
+        """Select a shown format's band (by name or ``Format``): the toolbar and the bits box
+        act on it."""
+        f = self.shown_format(fmt)
+        if f not in self.format_objects:
+            raise BitprismError(f"format {f.name!r} is not shown in this Prism")
+        self.selected = f.name
 
     @guarded
-    def _on_nav_click(self, index: int, action: str, button: Any = None) -> None:
-        row: FormatRow = self.comparison.rows[index]
+    def _on_select(self, fmt: Format, button: Any = None) -> None:
+        self.select(fmt)
+
+    @guarded
+    def _on_bit_click(self, fmt: Format, bit: int, button: Any = None) -> None:
+        row = self.comparison.row(fmt)
+        self.set_source(fmt, row.code ^ (1 << bit))
+
+    @guarded
+    def _on_action(self, action: str, button: Any = None) -> None:
+        self.act(action)
+
+    def act(self, action: str) -> None:
+        """What a toolbar button does to the selected band: 'down', 'up' (its neighbours),
+        'largest', 'normal', 'subnormal' (largest finite, smallest normal and smallest
+        subnormal of its format) or 'remove'."""
+        row = self.selected_row()
         f = row.format
         if action == "remove":
             if len(self.formats) == 1:
@@ -521,19 +572,24 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
                     self.source_format = ""
                     self.source_code = None
                 self.formats = [g for g in self.formats if get_format(g) != f]
+                self.selected = ""
             return
         if action in ("down", "up"):
             n = row.next_down if action == "down" else row.next_up
             if n is None:
-                self.message = f"{f.name}: no value {'below' if action == 'down' else 'above'} {row.shortest}"
+                where = "below" if action == "down" else "above"
+                self.message = f"{f.name}: no value {where} {row.shortest}"
                 return
             code = n.code
         elif action == "largest":
             code = f.max_code
         elif action == "normal":
             code = (1 << f.significand_bits) if f.has_zero else 0
-        else:
+        elif action == "subnormal":
             code = 1 if f.has_subnormals else ((1 << f.significand_bits) if f.has_zero else 0)
+        else:
+            raise BitprismError(f"action must be one of down, up, largest, normal, subnormal, "
+                                f"remove; got {action!r}")
         self.set_source(f, code)
 
     @guarded
@@ -550,12 +606,21 @@ class Prism(BatchedRefresh, CastSettings, CaseFileMixin, W.VBox):
     def _on_seed(self, change: Any) -> None:
         if self._suspend:
             return
+        text = str(change["new"]).strip()
         try:
-            self.seed = change["new"]
+            if text.lower() in ("", "none"):
+                seed = None
+            else:
+                try:
+                    seed = int(text.replace("_", ""), 0)
+                except ValueError:
+                    raise BitprismError(
+                        f"seed must be none or an integer in 0..2**63-1; got {text!r}") from None
+            self.seed = check_seed(seed)
         except BitprismError:  # e.g. -1 or 2**63: not a seed a case file can hold
             self._suspend += 1
             try:
-                self.seed_input.value = 0 if self.seed is None else self.seed
+                self.seed_input.value = "none" if self.seed is None else str(self.seed)
             finally:
                 self._suspend -= 1
             raise

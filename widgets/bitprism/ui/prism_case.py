@@ -8,7 +8,11 @@ State stored (schema 1)::
      "formats": ["float32", {...to_params()...}],
      "options": {"rounding": ..., "overflow": ..., "subnormals": ..., "seed": ...},
      "via": "" | "float32", "aligned": true, "expression": "",
-     "codes": ["0x3dcccccd", ...]}        # what each band showed, checked again on reopening
+     "codes": ["0x3dcccccd", ...],        # what each band showed, checked again on reopening
+     "selected": "float16", "compact": false, "caption": ""}   # optional (issue 17)
+
+The last three keys are optional: a file without them (written before they existed) opens
+with the first band selected, the full view and no caption, so the schema stays 1.
 
 When a band's bit pattern is the source (a NaN payload, a signed zero, a flipped bit), that
 pattern is what reloads the view, so it comes back bit for bit.
@@ -39,7 +43,8 @@ from .case_codecs import (
 
 __all__ = ["prism_case_state", "prism_from_case_state", "prism_static_html"]
 
-_KEYS = ("value", "source", "formats", "options", "via", "aligned", "expression", "codes")
+_KEYS = ("value", "source", "formats", "options", "via", "aligned", "expression", "codes",
+         "selected", "compact", "caption")
 
 
 def prism_case_state(prism: Any) -> dict[str, Any]:
@@ -60,6 +65,9 @@ def prism_case_state(prism: Any) -> dict[str, Any]:
         "aligned": bool(prism.aligned),
         "expression": prism.expression,
         "codes": codes,
+        "selected": prism.selected_row().format.name if c is not None else "",
+        "compact": bool(prism.compact),
+        "caption": prism.caption,
     }
 
 
@@ -104,9 +112,14 @@ def _check_state(state: Any) -> dict[str, Any]:
             )
         codes = [code_from_hex(h, f, f"state.codes[{i}]") for i, (h, f) in
                  enumerate(zip(raw_codes, fmts))]
+    selected = want_str(state.get("selected", ""), "state.selected",
+                        [""] + [f.name for f in fmts])
+    compact = want_bool(state.get("compact", False), "state.compact")
+    caption = want_str(state.get("caption", ""), "state.caption", max_chars=MAX_TEXT_CHARS)
     return {
         "value": value, "formats": fmts, "options": options, "via": via, "aligned": aligned,
-        "expression": expression, "source": source, "codes": codes,
+        "expression": expression, "source": source, "codes": codes, "selected": selected,
+        "compact": compact, "caption": caption,
     }
 
 
@@ -121,6 +134,9 @@ def prism_from_case_state(cls: Any, state: Any) -> Any:
         prism.via = s["via"]
         prism.aligned = s["aligned"]
         prism.expression = s["expression"]
+        prism.selected = s["selected"]
+        prism.compact = s["compact"]
+        prism.caption = s["caption"]
     if s["source"] is not None:
         pin, code = s["source"]
         prism.set_source(pin, code)

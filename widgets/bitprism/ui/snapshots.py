@@ -1,10 +1,28 @@
-"""Static snapshots of a widget in notebook outputs, so a saved notebook shows the last view
-even without a kernel.
+"""Static views of a widget in notebook outputs: the snapshot slot, and pins.
 
-A widget is displayed with its live view plus a static HTML snapshot under a display id;
-later changes republish the snapshot under the same id, at most once per ``SNAPSHOT_INTERVAL``
-seconds, with a final update when the interval passes or the cell ends (IPython's
-``post_execute`` event). The widget provides ``_repr_mimebundle_()`` and ``_static_html()``.
+A widget is displayed as three outputs of its cell, each a slot under its own display id but
+the second:
+
+1. the *snapshot*: a widget view of no model plus the static snapshot as ``text/html``. Where
+   a widget manager renders (JupyterLab, Notebook 7) a view of no model hides itself, so
+   nothing is shown twice; nbconvert and static viewers, which have no widget state for it,
+   show the snapshot. Later changes republish it, at most once per ``SNAPSHOT_INTERVAL``
+   seconds, with a final update when the interval passes or the cell ends (IPython's
+   ``post_execute`` event). Republishing never touches the live view: updating an output that
+   holds a real widget view makes the widget manager build a new view of the whole widget each
+   time and keep the old one listening (ipywidgets 8.1's ``WidgetRenderer.renderModel``),
+   which is how a long session used to slow to a halt.
+2. the live widget view (``text/plain`` says what it is; an empty ``text/html`` keeps a saved
+   page from printing the widget's repr).
+3. the *pins*: hidden like the snapshot until a view is pinned into it.
+
+*Pinning* writes the current view as static HTML that every front end shows, with or without a
+kernel: ``pin_here`` displays it as an output of the running cell (the widgets' ``pin()``), and
+``pin_to_slot`` fills the pins slot under the widget (a pin button: a button press runs outside
+any cell, so only an output made at display time can receive it). Once a view is pinned, the
+snapshot slot is emptied: the pins are what a reader of the saved notebook sees.
+
+The widget provides ``_repr_mimebundle_()``, ``_static_html()`` and ``_pinned_html()``.
 """
 
 from __future__ import annotations
@@ -15,23 +33,32 @@ import time
 import uuid
 from typing import Any
 
-from ..render.widget_html import snapshot_error_html
+from ..errors import BitprismError
+from ..render.widget_html import pins_html, snapshot_error_html
 
 __all__ = [
+    "MAX_PINS",
     "SNAPSHOT_INTERVAL",
+    "WIDGET_VIEW",
     "display_with_snapshot",
+    "pin_here",
+    "pin_to_slot",
     "publish_snapshot",
     "snapshot_changed",
 ]
 
 SNAPSHOT_INTERVAL = 0.5  # seconds between two republished snapshots of a view on screen
+MAX_PINS = 8  # views a slot keeps pinned (the oldest goes first)
+WIDGET_VIEW = "application/vnd.jupyter.widget-view+json"
+_NO_MODEL = {"model_id": "", "version_major": 2, "version_minor": 0}
 
 
 class _SnapshotState:
-    """Displays of one widget and the throttle of their static snapshots."""
+    """Displays of one widget, the views pinned into them, and the snapshot throttle."""
 
     def __init__(self) -> None:
-        self.display_ids: list[str] = []
+        self.display_ids: list[tuple[str, str]] = []  # (snapshot slot, pins slot) per display
+        self.pins: list[str] = []
         self.last = 0.0
         self.pending = False
         self.timer: threading.Timer | None = None
@@ -71,35 +98,59 @@ def _snapshots(widget: Any) -> _SnapshotState:
     return state  # type: ignore[no-any-return]
 
 
-def _display_bundle(widget: Any) -> dict[str, Any]:
-    bundle = dict(widget._repr_mimebundle_() or {})
+def _static(widget: Any) -> str:
     try:
-        bundle["text/html"] = widget._static_html()
+        return str(widget._static_html())
     except Exception as exc:  # a snapshot must never break displaying the widget
-        bundle["text/html"] = snapshot_error_html(exc)
-    bundle.setdefault("text/plain", repr(widget))
+        return snapshot_error_html(exc)
+
+
+def _name(widget: Any) -> str:
+    return type(widget).__name__
+
+
+def _snapshot_bundle(widget: Any, pins: list[str]) -> dict[str, Any]:
+    return {WIDGET_VIEW: dict(_NO_MODEL), "text/html": "" if pins else _static(widget),
+            "text/plain": f"static view of a {_name(widget)}"}
+
+
+def _pins_bundle(widget: Any, pins: list[str]) -> dict[str, Any]:
+    if not pins:
+        return {WIDGET_VIEW: dict(_NO_MODEL), "text/html": "", "text/plain": ""}
+    return {"text/html": pins_html(pins),
+            "text/plain": f"{len(pins)} pinned view(s) of a {_name(widget)}"}
+
+
+def _live_bundle(widget: Any) -> dict[str, Any]:
+    bundle = dict(widget._repr_mimebundle_() or {})
+    bundle["text/plain"] = (f"{_name(widget)}: a live widget (it needs its kernel); its "
+                            "static view is saved in the output above")
+    bundle["text/html"] = ""
     return bundle
 
 
 def display_with_snapshot(widget: Any) -> None:
-    """Publish the live widget view plus a static snapshot, under a display id that later
-    changes update."""
+    """Display the snapshot slot, then the live widget view (see the module notes)."""
     from IPython.display import display
 
     snaps = _snapshots(widget)
-    display_id = uuid.uuid4().hex
+    ids = (uuid.uuid4().hex, uuid.uuid4().hex)
     with snaps.lock:
-        snaps.display_ids.append(display_id)
+        snaps.display_ids.append(ids)
         snaps.last = time.monotonic()
-    display(_display_bundle(widget), raw=True, display_id=display_id)
+        pins = list(snaps.pins)
+    display(_snapshot_bundle(widget, pins), raw=True, display_id=ids[0])
+    display(_live_bundle(widget), raw=True)
+    display(_pins_bundle(widget, pins), raw=True, display_id=ids[1])
     _hook_post_execute()
 
 
 def snapshot_changed(widget: Any) -> None:
     """The view changed: republish the snapshot, at most every ``SNAPSHOT_INTERVAL`` seconds,
-    with a final update when a cell ends or the interval passes. Nothing when not displayed."""
+    with a final update when a cell ends or the interval passes. Nothing when not displayed,
+    or once a view is pinned."""
     snaps = widget.__dict__.get(_STATE_KEY)
-    if snaps is None or not snaps.display_ids:
+    if snaps is None or not snaps.display_ids or snaps.pins:
         return
     with snaps.lock:
         wait = snaps.last + SNAPSHOT_INTERVAL - time.monotonic()
@@ -115,7 +166,7 @@ def snapshot_changed(widget: Any) -> None:
 
 
 def publish_snapshot(widget: Any) -> None:
-    """Update every display of ``widget`` with its current snapshot now."""
+    """Update every snapshot slot of ``widget`` with its current snapshot now."""
     from IPython.display import update_display
 
     snaps = _snapshots(widget)
@@ -127,6 +178,39 @@ def publish_snapshot(widget: Any) -> None:
         _PENDING.discard(widget)
         snaps.last = time.monotonic()
         ids = list(snaps.display_ids)
-    bundle = _display_bundle(widget)
-    for display_id in ids:
-        update_display(bundle, raw=True, display_id=display_id)
+        pins = list(snaps.pins)
+    bundle = _snapshot_bundle(widget, pins)
+    for snapshot_id, _ in ids:
+        update_display(bundle, raw=True, display_id=snapshot_id)
+
+
+def pin_here(widget: Any) -> str:
+    """Display the current view, pinned, as an output of the running cell; returns its HTML."""
+    from IPython.display import display
+
+    html = str(widget._pinned_html())
+    display({"text/html": html, "text/plain": f"pinned view of a {_name(widget)}"}, raw=True)
+    return html
+
+
+def pin_to_slot(widget: Any) -> str:
+    """Pin the current view into the slot of the widget's display (kept: the latest
+    ``MAX_PINS``); returns its HTML. Refused when the widget was not displayed in a cell."""
+    snaps = widget.__dict__.get(_STATE_KEY)
+    if snaps is None or not snaps.display_ids:
+        raise BitprismError(
+            f"this {_name(widget)} was not displayed by a notebook cell, so there is no "
+            "output to pin into; call pin() in a cell instead")
+    from IPython.display import update_display
+
+    html = str(widget._pinned_html())
+    with snaps.lock:
+        snaps.pins = (snaps.pins + [html])[-MAX_PINS:]
+        pins = list(snaps.pins)
+        ids = list(snaps.display_ids)
+    bundle = _pins_bundle(widget, pins)
+    for _, pins_id in ids:
+        update_display(bundle, raw=True, display_id=pins_id)
+    if len(pins) == 1:  # the first pin: the snapshot above the widget steps aside
+        publish_snapshot(widget)
+    return html

@@ -1,18 +1,22 @@
 """A ``TensorPrism``'s side of the case-file protocol (see ``ui/case_file.py``).
 
-State stored (schema 1)::
+State stored (schema 2)::
 
     {"formats": [...], "options": {...}, "format_a": ..., "format_b": ..., "view": ...,
-     "log_scale": false, "error_unit": "ulp", "summary_scope": "tensor",
+     "value_scale": "auto", "error_unit": "ulp", "summary_scope": "tensor",
      "shape": [...], "axes": [row_axis, col_axis], "fixed": [...],
      "window": {"row": ..., "col": ..., "rows": ..., "cols": ...},
      "origin": [...],                       # tensor index of the window's first cell
-     "selected": [...] | null,
-     "data": {"dtype": "float32", "rows": r, "cols": c, "bits": ["0x3dcccccd", ...]}}
+     "selected": [...] | null,              # a tensor index
+     "data": {"dtype": "float32", "rows": r, "cols": c, "bits": ["0x3dcccccd", ...]},
+     "summary": {...} | null,               # the summary the author saw (summary_record)
+     "counts": {...} | null}                # the find buttons' counts the author saw
 
 Only the window is stored (at most ``MAX_WINDOW_SIDE`` x ``MAX_WINDOW_SIDE`` cells), as exact
-bit patterns of its dtype; reopening shows that window as a tensor of its own, with a title
-saying where it came from.
+bit patterns of its dtype. Reopening places it where it was in the tensor (``Placed``): the
+indices, the shape, the selection and the stochastic draws are the original tensor's, and the
+summary and counts are the ones recorded, not figures of the window alone. Schema 1 wrote
+``log_scale`` (a bool) where schema 2 writes ``value_scale``; ``case_envelope`` migrates.
 """
 
 from __future__ import annotations
@@ -24,8 +28,9 @@ from typing import Any
 import numpy as np
 
 from ..formats import FORMATS, Format
-from ..render.grid_html import VIEWS
-from ..tensors.window import ERROR_UNITS, MAX_SIDE
+from ..render.grid_html import VALUE_SCALES, VIEWS
+from ..tensors.scan import ScanResult
+from ..tensors.window import ERROR_UNITS, MAX_SIDE, Placed
 from .case_codecs import (
     MAX_FORMATS,
     CaseFieldError,
@@ -34,11 +39,17 @@ from .case_codecs import (
     format_to_json,
     options_from_json,
     options_to_json,
-    want_bool,
     want_int,
     want_list,
     want_object,
     want_str,
+)
+from .summary_record import (
+    RecordedCounts,
+    counts_from_json,
+    counts_to_json,
+    summary_from_json,
+    summary_to_json,
 )
 
 __all__ = [
@@ -52,23 +63,29 @@ __all__ = [
 
 SUMMARY_SCOPES = ("tensor", "slice")  # what the summary scans: the whole tensor or the 2-D slice
 
-_KEYS = ("formats", "options", "format_a", "format_b", "view", "log_scale", "error_unit",
-         "summary_scope", "shape", "axes", "fixed", "window", "origin", "selected", "data")
+_KEYS = ("formats", "options", "format_a", "format_b", "view", "value_scale", "error_unit",
+         "summary_scope", "shape", "axes", "fixed", "window", "origin", "selected", "data",
+         "summary", "counts")
 
 
 @dataclass(frozen=True)
 class TensorCase:
     """A checked case state: what to build the widget from."""
 
-    data: np.ndarray  # the saved window, as a 2-D tensor of its own
+    data: Any  # the saved window: a Placed block of the original tensor, or a 2-D array
     formats: list[Format]
     settings: dict[str, Any]  # keyword arguments of TensorPrism, in the order they are set
     origin: tuple[int, ...] | None  # where the window was in the original tensor
-    selected: tuple[int, ...]  # the selected cell in the saved window; () when none
+    selected: tuple[int, ...]  # the selected tensor index, () when none or not saved
+    summary: tuple[ScanResult, str] | None  # the summary the author saw, and its scope
+    counts: RecordedCounts | None  # the find buttons' counts the author saw
 
 
-def tensor_case_state(tp: Any, format_a: Format, format_b: Format) -> dict[str, Any]:
-    """The JSON-ready state of ``tp``'s current view (formats A and B as resolved)."""
+def tensor_case_state(tp: Any, format_a: Format, format_b: Format,
+                      summary: tuple[ScanResult, str] | None,
+                      counts: RecordedCounts | None) -> dict[str, Any]:
+    """The JSON-ready state of ``tp``'s current view (formats A and B as resolved), with the
+    summary and counts it shows."""
     w = tp.window
     check_window_size(w.rows, w.cols)
     dt = w.raw.dtype
@@ -81,16 +98,18 @@ def tensor_case_state(tp: Any, format_a: Format, format_b: Format) -> dict[str, 
         "format_a": format_a.name,
         "format_b": format_b.name,
         "view": tp.view,
-        "log_scale": bool(tp.log_scale),
+        "value_scale": tp.value_scale,
         "error_unit": tp.error_unit,
         "summary_scope": tp.summary_scope,
-        "shape": [int(s) for s in tp.data.shape],
+        "shape": [int(s) for s in w.shape],
         "axes": [tp.row_axis, tp.col_axis],
         "fixed": [int(v) for v in w.fixed],
         "window": {"row": w.row0, "col": w.col0, "rows": w.rows, "cols": w.cols},
         "origin": [int(v) for v in origin],
         "selected": [int(v) for v in tp.selected] if tp.selected else None,
         "data": {"dtype": dtype_name(dt), "rows": w.rows, "cols": w.cols, "bits": bits},
+        "summary": None if summary is None else summary_to_json(*summary),
+        "counts": None if counts is None else counts_to_json(counts),
     }
 
 
@@ -113,7 +132,7 @@ def read_tensor_case(state: Any) -> TensorCase:
         if k in state:
             ab[k] = want_str(state[k], f"state.{k}", names)
     view = want_str(state.get("view", "cast"), "state.view", VIEWS)
-    log_scale = want_bool(state.get("log_scale", False), "state.log_scale")
+    value_scale = want_str(state.get("value_scale", "auto"), "state.value_scale", VALUE_SCALES)
     unit = want_str(state.get("error_unit", "ulp"), "state.error_unit", ERROR_UNITS)
     scope = want_str(state.get("summary_scope", "tensor"), "state.summary_scope", SUMMARY_SCOPES)
     d = want_object(state["data"], "state.data", required=("dtype", "rows", "cols", "bits"))
@@ -122,9 +141,17 @@ def read_tensor_case(state: Any) -> TensorCase:
     check_window_size(rows, cols, "state.data")
     arr = _window_data(d, rows, cols)
     place = _read_place(state, rows, cols)
-    kwargs = {"view": view, "log_scale": log_scale, "error_unit": unit, "summary_scope": scope,
-              "rows": rows, "cols": cols, **opts, **ab}
-    return TensorCase(arr, fmts, kwargs, place.origin, place.selected_cell())
+    summary = None
+    if state.get("summary") is not None:
+        summary = summary_from_json(state["summary"])
+    counts = None
+    if state.get("counts") is not None:
+        counts = counts_from_json(state["counts"], names, ERROR_UNITS)
+    kwargs: dict[str, Any] = {"view": view, "value_scale": value_scale, "error_unit": unit,
+                              "summary_scope": scope, **opts, **ab}
+    data, more, selected = place.placed(arr)
+    kwargs.update(more)
+    return TensorCase(data, fmts, kwargs, place.origin, selected, summary, counts)
 
 
 @dataclass(frozen=True)
@@ -138,16 +165,45 @@ class _Place:
     rows: int
     cols: int
 
-    def selected_cell(self) -> tuple[int, ...]:
-        """The selected cell in the saved window, ``()`` when none or outside the window."""
-        sel, origin = self.selected, self.origin
-        if sel is None or origin is None:
-            return ()
-        ra, ca = self.axes if self.axes is not None else (None, len(sel) - 1)
-        r = sel[ra] - origin[ra] if ra is not None else 0
-        c = sel[ca] - origin[ca]
-        others = all(sel[ax] == origin[ax] for ax in range(len(sel)) if ax not in (ra, ca))
-        return (r, c) if others and 0 <= r < self.rows and 0 <= c < self.cols else ()
+    def placed(self, window: np.ndarray) -> tuple[Any, dict[str, Any], tuple[int, ...]]:
+        """The saved window placed where it was in the tensor (when the case says where),
+        the TensorPrism settings that show it there, and the selection (a tensor index, ``()``
+        when none or outside the saved window). A case that does not say where (a hand-made
+        one: shape, axes and origin are optional) shows the window as a 2-D tensor."""
+        shape, axes, origin = self.shape, self.axes, self.origin
+        if shape is None or axes is None or origin is None:
+            sel = self.selected if self.selected is not None and len(self.selected) == 2 else None
+            inside = sel is not None and sel[0] < self.rows and sel[1] < self.cols
+            return window, {"rows": self.rows, "cols": self.cols}, (sel if inside else ()) or ()
+        ra, ca = axes
+        nd = len(shape)
+        block: np.ndarray
+        if ra is None and self.rows != 1:
+            raise CaseFieldError("state.data.rows", "1-D data is saved as one row")
+        sizes = [1] * nd
+        if ra is not None:
+            sizes[ra] = self.rows
+        sizes[ca] = self.cols
+        for ax in range(nd):
+            if origin[ax] + sizes[ax] > shape[ax]:
+                raise CaseFieldError("state.origin", f"a window of {self.rows} x {self.cols} "
+                                     f"from {list(origin)} passes the end of axis {ax} "
+                                     f"({shape[ax]})")
+        if ra is None:
+            block = window.reshape(self.cols)
+        else:
+            rest = [1] * (nd - 2)
+            block = np.moveaxis(window.reshape(self.rows, self.cols, *rest), [0, 1], [ra, ca])
+        chosen = self.selected
+        inside = chosen is not None and all(
+            origin[ax] <= chosen[ax] < origin[ax] + sizes[ax] for ax in range(nd))
+        settings: dict[str, Any] = {"row_axis": ra, "col_axis": ca, "fixed": origin,
+                                    "rows": self.rows, "cols": self.cols}
+        if ra is not None:
+            settings["row_offset"] = origin[ra]
+        settings["col_offset"] = origin[ca]
+        return Placed(np.ascontiguousarray(block), origin, shape), settings, (
+            chosen if inside and chosen is not None else ())
 
 
 _MAX_NDIM = 64  # numpy's limit on the number of axes
@@ -214,14 +270,27 @@ def _read_place(state: dict[str, Any], rows: int, cols: int) -> _Place:
         raise CaseFieldError("state.selected", f"one index per axis expected ({len(origin)}), "
                                                f"got {len(selected)}")
     if "window" in state:
-        _check_window(state["window"], rows, cols, shape, axes, fixed, origin)
+        corner = _check_window(state["window"], rows, cols, shape, axes, fixed, origin)
+        if origin is None and fixed is not None and axes is not None:
+            origin = _corner(fixed, axes, *corner)
     return _Place(shape, axes, origin, selected, rows, cols)
+
+
+def _corner(fixed: tuple[int, ...], axes: tuple[int | None, int], row: int,
+            col: int) -> tuple[int, ...]:
+    """The tensor index of a window's first cell: ``fixed`` with its first row and column."""
+    out = list(fixed)
+    if axes[0] is not None:
+        out[axes[0]] = row
+    out[axes[1]] = col
+    return tuple(out)
 
 
 def _check_window(value: Any, rows: int, cols: int, shape: tuple[int, ...] | None,
                   axes: tuple[int | None, int] | None, fixed: tuple[int, ...] | None,
-                  origin: tuple[int, ...] | None) -> None:
-    """``state.window``: the first row and column shown and the saved window's size."""
+                  origin: tuple[int, ...] | None) -> tuple[int, int]:
+    """``state.window``: the first row and column shown and the saved window's size; returns
+    the first row and column."""
     w = want_object(value, "state.window", required=("row", "col", "rows", "cols"))
     row = want_int(w["row"], "state.window.row", 0, _MAX_DIM)
     col = want_int(w["col"], "state.window.col", 0, _MAX_DIM)
@@ -230,7 +299,7 @@ def _check_window(value: Any, rows: int, cols: int, shape: tuple[int, ...] | Non
             raise CaseFieldError(f"state.window.{key}", f"{w[key]} differs from state.data."
                                                         f"{key} ({saved})")
     if axes is None:
-        return
+        return row, col
     ra, ca = axes
     if ra is None and (row != 0 or rows != 1):
         raise CaseFieldError("state.window", "1-D data is shown as one row from row 0")
@@ -240,13 +309,11 @@ def _check_window(value: Any, rows: int, cols: int, shape: tuple[int, ...] | Non
                 raise CaseFieldError(f"state.window.{where}", f"{start} + {size} cells pass the "
                                                               f"end of axis {ax} ({shape[ax]})")
     if fixed is not None and origin is not None:
-        want = list(fixed)
-        if ra is not None:
-            want[ra] = row
-        want[ca] = col
+        want = list(_corner(fixed, axes, row, col))
         if list(origin) != want:
             raise CaseFieldError("state.origin", f"{list(origin)} is not where state.fixed and "
                                                  f"state.window put the window ({want})")
+    return row, col
 
 
 def _window_data(d: dict[str, Any], rows: int, cols: int) -> np.ndarray:
