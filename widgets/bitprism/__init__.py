@@ -20,6 +20,8 @@ from .numerics.decimal_text import exact_decimal, shortest_decimal
 from .numerics.evaluate import Evaluation, evaluate
 from .numerics.options import OVERFLOW_MODES, ROUNDING_MODES, SUBNORMAL_MODES, CastOptions
 from .numerics.parse import parse, parse_bits
+from .probes import FormatCounts, ModuleRow, OpRecord, Trace, Watch, WatchRecord, trace, watch
+from .probes import views as _probe_views
 from .tensors.adapters import as_array
 from .tensors.advisor import ScaleAdvice, suggest_scale
 from .tensors.files import open_tensor, open_tensors
@@ -37,12 +39,15 @@ __all__ = [
     "FORMATS",
     "Fields",
     "Format",
+    "FormatCounts",
     "FormatRow",
     "FormatScan",
     "MXFormat",
     "MXResult",
     "MX_FORMATS",
+    "ModuleRow",
     "OVERFLOW_MODES",
+    "OpRecord",
     "ParseError",
     "ROUNDING_MODES",
     "SUBNORMAL_MODES",
@@ -50,7 +55,10 @@ __all__ = [
     "ScanQuantizer",
     "ScanResult",
     "ScanTuning",
+    "Trace",
     "UnsupportedInputError",
+    "Watch",
+    "WatchRecord",
     "__version__",
     "as_array",
     "cast",
@@ -74,8 +82,10 @@ __all__ = [
     "scan",
     "shortest_decimal",
     "suggest_scale",
+    "trace",
     "ulp",
     "ulp_distance",
+    "watch",
 ]
 
 # Names loaded on first access, so that `import bitprism` stays free of UI and plotting
@@ -98,6 +108,20 @@ def _load_views(view: str) -> None:
 
 
 _display.install_loader(_load_views)
+
+
+def _open_tensor_prism(data: Any, formats: Any, selected: Any) -> Any:
+    """A ``TensorPrism`` of a probe's captured array (probes may not import the widgets, so
+    the package root hands them this opener)."""
+    from .ui.tensor_prism import TensorPrism
+
+    widget = TensorPrism(data, formats=list(formats))
+    if selected is not None:
+        widget.select(selected)
+    return widget
+
+
+_probe_views.install_opener(_open_tensor_prism)
 
 
 def __getattr__(name: str) -> Any:

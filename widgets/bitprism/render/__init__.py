@@ -10,12 +10,16 @@ from __future__ import annotations
 from .. import display
 from ..numerics.compare import Comparison
 from ..numerics.evaluate import Evaluation
+from ..probes import Trace, Watch
+from ..probes.cases import ProbeCase
 from ..tensors.advisor import ScaleAdvice
 from ..tensors.mx import MXResult
 from ..tensors.scan import ScanResult
 from .compare_html import comparison_html, evaluations_html
 from .compare_text import comparison_text
 from .evaluation_text import evaluation_text
+from .probes_html import probe_case_html, trace_html, watch_html
+from .probes_text import probe_case_text, trace_text, watch_text
 from .records import advice_html, advice_text, mx_html, mx_text
 from .scan_html import scan_html
 from .scan_text import scan_text
@@ -32,3 +36,9 @@ display.register("text", Evaluation, evaluation_text)
 display.register("html", Evaluation, lambda ev: evaluations_html([ev]))
 display.register("text", ScanResult, scan_text)
 display.register("html", ScanResult, scan_html)
+display.register("text", Trace, trace_text)
+display.register("html", Trace, trace_html)
+display.register("text", Watch, watch_text)
+display.register("html", Watch, watch_html)
+display.register("text", ProbeCase, probe_case_text)
+display.register("html", ProbeCase, probe_case_html)
