@@ -27,6 +27,7 @@ from .tensors.advisor import ScaleAdvice, suggest_scale
 from .tensors.files import open_tensor, open_tensors
 from .tensors.mx import MX_FORMATS, MXFormat, MXResult, decode_mx, get_mx_format, mx_quantize
 from .tensors.scan import ExponentHistogram, FormatScan, ScanQuantizer, ScanResult, ScanTuning, scan
+from .tensors.scaling import ScaleSweep, ScalingComparison, ScalingReplay, compare_scaling, replay_scaling
 
 __all__ = [
     "BitprismError",
@@ -52,6 +53,9 @@ __all__ = [
     "ROUNDING_MODES",
     "SUBNORMAL_MODES",
     "ScaleAdvice",
+    "ScaleSweep",
+    "ScalingComparison",
+    "ScalingReplay",
     "ScanQuantizer",
     "ScanResult",
     "ScanTuning",
@@ -63,6 +67,7 @@ __all__ = [
     "as_array",
     "cast",
     "compare",
+    "compare_scaling",
     "decode",
     "decode_mx",
     "encode",
@@ -79,6 +84,7 @@ __all__ = [
     "open_tensors",
     "parse",
     "parse_bits",
+    "replay_scaling",
     "scan",
     "shortest_decimal",
     "suggest_scale",

@@ -5,6 +5,7 @@
     bitprism show 2**-24 --formats fp32,bf16,fp16,e4m3      # one value across formats
     bitprism scan model.safetensors --formats fp16,e4m3 --fail-on nan,inf,overflow
     bitprism formats                                         # the built-in formats and aliases
+    bitprism scale acts.npy --formats e4m3 --objective sqnr  # per tensor, channel, MX block scales
 
 Exit status: 0 success; 1 when ``scan --fail-on`` found one of the named conditions (so a
 pipeline can refuse a checkpoint); 2 for a bad argument, an unknown format or an unreadable
@@ -226,6 +227,27 @@ def _build_parser() -> argparse.ArgumentParser:
     )
     scan.add_argument("--json", action="store_true", help="machine-readable output")
     scan.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
+
+    scale = sub.add_parser(
+        "scale",
+        help="which power-of-two scales a tensor needs in a format",
+        description="For each tensor of a file and each format, side by side: no scaling, one "
+        "scale per tensor, per channel and MX blocks, with SQNR, relative-error p99, overflow, "
+        "underflow, and what the scales cost in bits per element.",
+    )
+    scale.add_argument("file", metavar="FILE", help="a .npy, .npz or .safetensors file")
+    scale.add_argument("--tensor", metavar="NAME", help="only this tensor of the file")
+    scale.add_argument("--formats", default="float8_e4m3fn,float8_e5m2",
+                       help="comma-separated element formats (default %(default)s)")
+    scale.add_argument("--granularity", default="tensor,channel,block", help="rows besides no "
+                       "scaling: comma-separated tensor, channel, block (default %(default)s)")
+    scale.add_argument("--objective", choices=("sqnr", "no_overflow", "amax"), default="sqnr",
+                       help="how tensor and channel scales are chosen (default %(default)s)")
+    scale.add_argument("--axis", type=int, default=-1, help="the channel and block axis (default -1)")
+    scale.add_argument("--block-size", type=int, default=32, help="elements per MX scale (default 32)")
+    scale.add_argument("--margin", type=int, default=0, help="binades of headroom (default 0)")
+    _add_cast_options(scale, scan=False)
+    scale.add_argument("--json", action="store_true", help="machine-readable output")
 
     fmts = sub.add_parser(
         "formats",
@@ -513,6 +535,36 @@ def _scan_summary(result: Any, counts: dict[str, dict[str, Any]]) -> dict[str, d
     return out
 
 
+# ----- scale ----------------------------------------------------------------------------------
+
+
+def _cmd_scale(args: argparse.Namespace) -> int:
+    from .tensors.scaling import GRANULARITIES
+    from .tensors.scaling.compare import compare_file
+
+    options = _options(args)
+    rows = [g.lower() for g in _split(args.granularity)]
+    if not rows or not set(rows) <= set(GRANULARITIES):
+        raise _UsageError(f"--granularity takes a comma-separated list of {', '.join(GRANULARITIES)}; "
+                          f"got {args.granularity!r}")
+    out = compare_file(args.file, _resolve_formats(args.formats, allow_mx=True), args.tensor,
+                       objective=args.objective, axis=args.axis, block_size=args.block_size,
+                       margin=args.margin, rounding=options.rounding, overflow=options.overflow,
+                       subnormals=options.subnormals, granularities=rows)
+    if args.json:
+        tensors = [{"name": n, "shape": list(sh), "dtype": dt,
+                    "formats": {c.format.name: _plain(c.records()) for c in done}}
+                   for n, sh, dt, done in out]
+        print(json.dumps({"file": os.fspath(args.file), "objective": args.objective,
+                          "rounding": options.rounding, "overflow": options.overflow,
+                          "subnormals": options.subnormals, "tensors": tensors}, ensure_ascii=True))
+        return EXIT_OK
+    for name, shape, dtype, done in out:
+        print(f"== {printable(name)} ({'x'.join(map(str, shape)) or 'scalar'}, {dtype}) ==")
+        print("\n\n".join(str(c) for c in done) + "\n")
+    return EXIT_OK
+
+
 # ----- formats --------------------------------------------------------------------------------
 
 
@@ -621,7 +673,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command is None:
         parser.print_help(sys.stderr)
         return EXIT_USAGE
-    command = {"show": _cmd_show, "scan": _cmd_scan, "formats": _cmd_formats}[args.command]
+    command = {"show": _cmd_show, "scan": _cmd_scan, "formats": _cmd_formats,
+               "scale": _cmd_scale}[args.command]
     try:
         return command(args)
     except _UsageError as exc:

@@ -14,12 +14,18 @@ by that block's shared exponent (MX v1.0 §6.3: ``floor(log2 max|x|) - emax_elem
 nothing in that block lies above its largest element. Finite values lost because their block
 holds a NaN or Inf (the scan's ``block_nan``) get a mark in the NaN colour.
 
+``advice_range_chart`` (``advice.plot(kind="range")``) draws a per-tensor ``ScaleAdvice``: the
+histogram of the unscaled data, and for each format two rows: its bands as they are, and its
+bands shifted by the advised scale (a scale ``2^k`` applied before the cast moves every edge
+from ``E`` to ``E - k`` on the data's axis), with the shares of the scans before and after.
+
 matplotlib is imported when a chart is drawn, never at module import.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Any
 
 from ..errors import BitprismError
@@ -27,7 +33,7 @@ from ..numerics.options import CastOptions
 from ..numerics.thresholds import cast_thresholds
 from ..render.vocabulary import FIELDS, OUTCOMES
 
-__all__ = ["range_chart"]
+__all__ = ["advice_range_chart", "range_chart", "scaled_rows"]
 
 # the outcome colours of render.vocabulary (light theme: a figure has a white background); the
 # normal band is a tint of the trailing-significand teal (values there are exact or rounded)
@@ -115,14 +121,79 @@ def _block_notes(ax: Any, f: Any, blk: tuple[float, float | None, float, int], l
                 bbox={"boxstyle": "round,pad=0.2", "fc": _NAN, "ec": "none"})
 
 
-def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, log: bool = True) -> Any:
-    """Draw the range chart of a ``ScanResult``; returns the matplotlib ``Figure``.
+@dataclass(frozen=True)
+class _Row:
+    """One row of the chart: a label, the scan of one format that gives its shares, and its
+    band edges as ``log2`` of the magnitude of the *charted* data (shifted by ``shift``)."""
 
-    Args:
-        result: what ``scan()`` returned.
-        width, row_height: figure size in inches (height grows with the number of formats).
-        log: logarithmic count axis (rare exponents stay visible).
-    """
+    label: str
+    scan: Any  # a FormatScan: the shares written on the bands, the block-NaN mark
+    under: float | None
+    normal: float | None
+    over: float | None
+    block: tuple[float, float | None, float, int] | None = None
+
+
+def _rows(result: Any, shift: float = 0.0, suffix: str = "") -> list[_Row]:
+    """The rows of a scan: each format's edges, ``shift`` binades along the exponent axis
+    (a scale ``2^k`` applied before the cast moves an edge ``E`` to ``E - k``)."""
+    rows = []
+    for f in result.formats:
+        blk = _block_edges(f, result.absmax, result.options)
+        triple = (blk[0], blk[1], None) if blk is not None else (
+            f.underflow_below, f.normal_from, f.overflow_from)
+        u, n_, o = (None if e is None else e + shift for e in map(_log2, triple))
+        if blk is not None and shift:
+            blk = (blk[0] * 2.0 ** shift, None if blk[1] is None else blk[1] * 2.0 ** shift,
+                   blk[2] * 2.0 ** shift, blk[3])
+        rows.append(_Row(f.name + suffix, f, u, n_, o, blk))
+    return rows
+
+
+def _edges(row: _Row) -> list[float]:
+    top = _log2(row.block[2]) if row.block is not None else None
+    return [e for e in (row.under, row.normal, row.over, top) if e is not None]
+
+
+def _draw_row(ax: Any, row: _Row, lo: float, hi: float, far_lo: float, far_hi: float) -> None:
+    """The bands of one row behind the bars, each labelled with its share of the tensor."""
+    f, u, n_, o, blk = row.scan, row.under, row.normal, row.over, row.block
+    bands = []
+    if u is not None:
+        bands.append(("underflow", far_lo, u, f.underflow))
+        if n_ is not None and n_ > u:
+            bands.append(("subnormal", u, n_, f.subnormal))
+    start = n_ if n_ is not None else (u if u is not None else far_lo)
+    end = o if o is not None else (_log2(blk[2]) or far_hi if blk is not None else far_hi)
+    bands.append(("normal", start, end, None))
+    if o is not None:
+        bands.append(("overflow", o, far_hi, f.overflow))
+    if blk is not None:
+        _block_notes(ax, f, blk, lo)
+    for kind, a, b, n in bands:
+        alpha = 0.12 if kind == "normal" else 0.28
+        ax.axvspan(a, b, color=_BAND[kind], alpha=alpha, lw=0)
+        va, vb = max(a, lo), min(b, hi)  # the visible part of the band
+        if n is not None and vb > va and (n or vb - va >= 8):  # no crowded "0%" labels
+            x, ha = (va + vb) / 2, "center"
+            if vb - va < 8 and va == lo:  # a narrow band at the edge of the view: the
+                x, ha = lo + 0.2, "left"  # label grows inward instead of off the axes
+            elif vb - va < 8 and vb == hi:
+                x, ha = hi - 0.2, "right"
+            ax.text(
+                x, 0.96, f"{kind} {_share(n, f.size)}",
+                transform=ax.get_xaxis_transform(), ha=ha, va="top", fontsize=7,
+                color="#1f2328", clip_on=True,
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7},
+            )
+        for edge in (a, b):  # band edges inside the view, as thin lines
+            if lo < edge < hi and kind != "normal":
+                ax.axvline(edge, color=_BAND[kind], lw=0.8, alpha=0.7)
+
+
+def _figure(result: Any, rows: list[_Row], title: str, *, width: float, row_height: float,
+            log: bool) -> Any:
+    """Draw ``rows`` over the exponent histogram of ``result``."""
     h = result.histogram
     if not h.collected:
         raise BitprismError(
@@ -131,60 +202,15 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
         )
     from matplotlib.figure import Figure
 
-    rows = result.formats
     fig = Figure(figsize=(width, 0.9 + row_height * max(1, len(rows))), layout="constrained")
     axes = fig.subplots(max(1, len(rows)), 1, sharex=True, squeeze=False)[:, 0]
     exps = list(h.exponents)
     counts = list(h.counts)
-    edges = []
-    blocks = {}
-    for f in rows:
-        blk = _block_edges(f, result.absmax, result.options)
-        if blk is not None:
-            blocks[f.name] = blk
-            triple = (blk[0], blk[1], blk[2])
-        else:
-            triple = (f.underflow_below, f.normal_from, f.overflow_from)
-        edges += [e for e in map(_log2, triple) if e is not None]
+    edges = [e for row in rows for e in _edges(row)]
     lo, hi = _view(exps, edges)
-    for ax, f in zip(axes, rows):
-        bands = []
-        blk = blocks.get(f.name)
-        if blk is not None:
-            u, n_, o = _log2(blk[0]), _log2(blk[1]), None
-        else:
-            u, n_, o = _log2(f.underflow_below), _log2(f.normal_from), _log2(f.overflow_from)
-        far_lo, far_hi = min(lo, *(edges or [lo])) - 1, max(hi, *(edges or [hi])) + 1
-        if u is not None:
-            bands.append(("underflow", far_lo, u, f.underflow))
-            if n_ is not None and n_ > u:
-                bands.append(("subnormal", u, n_, f.subnormal))
-        start = n_ if n_ is not None else (u if u is not None else far_lo)
-        end = o if o is not None else (_log2(blk[2]) or far_hi if blk is not None else far_hi)
-        bands.append(("normal", start, end, None))
-        if o is not None:
-            bands.append(("overflow", o, far_hi, f.overflow))
-        if blk is not None:
-            _block_notes(ax, f, blk, lo)
-        for kind, a, b, n in bands:
-            alpha = 0.12 if kind == "normal" else 0.28
-            ax.axvspan(a, b, color=_BAND[kind], alpha=alpha, lw=0)
-            va, vb = max(a, lo), min(b, hi)  # the visible part of the band
-            if n is not None and vb > va and (n or vb - va >= 8):  # no crowded "0%" labels
-                x, ha = (va + vb) / 2, "center"
-                if vb - va < 8 and va == lo:  # a narrow band at the edge of the view: the
-                    x, ha = lo + 0.2, "left"  # label grows inward instead of off the axes
-                elif vb - va < 8 and vb == hi:
-                    x, ha = hi - 0.2, "right"
-                ax.text(
-                    x, 0.96, f"{kind} {_share(n, f.size)}",
-                    transform=ax.get_xaxis_transform(), ha=ha, va="top", fontsize=7,
-                    color="#1f2328", clip_on=True,
-                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7},
-                )
-            for edge in (a, b):  # band edges inside the view, as thin lines
-                if lo < edge < hi and kind != "normal":
-                    ax.axvline(edge, color=_BAND[kind], lw=0.8, alpha=0.7)
+    far_lo, far_hi = min(lo, *(edges or [lo])) - 1, max(hi, *(edges or [hi])) + 1
+    for ax, row in zip(axes, rows):
+        _draw_row(ax, row, lo, hi, far_lo, far_hi)
         if exps:
             ax.bar([e + 0.5 for e in exps], counts, width=0.9, color=_BAR, lw=0)
             if log:
@@ -192,18 +218,61 @@ def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, lo
             top = max(counts)  # headroom above the tallest bar for the band labels
             ax.set_ylim(0.5 if log else 0, top * 40 if log else top * 1.3)
         ax.set_xlim(lo, hi)
-        ax.set_ylabel(f.name, rotation=0, ha="right", va="center", fontsize=8)
+        ax.set_ylabel(row.label, rotation=0, ha="right", va="center", fontsize=8)
         ax.tick_params(labelsize=7)
     axes[-1].set_xlabel("binary exponent  floor(log2 |x|)")
     extra = []
     for label, n in (("zero", h.zero), ("subnormal", h.subnormal), ("Inf", h.inf), ("NaN", h.nan)):
         if n:
             extra.append(f"{label} {n:,}")
-    shape = "x".join(str(s) for s in result.shape) or "scalar"
-    title = f"range chart: {result.dtype} [{shape}]"
-    if result.scale is not None:
-        title += f", scaled by {result.scale:g}"
     if extra:
         title += "  (" + ", ".join(extra) + " not shown as bars)"
     fig.suptitle(title, fontsize=9)
     return fig
+
+
+def _title(result: Any) -> str:
+    shape = "x".join(str(s) for s in result.shape) or "scalar"
+    return f"range chart: {result.dtype} [{shape}]"
+
+
+def range_chart(result: Any, *, width: float = 9.0, row_height: float = 1.35, log: bool = True) -> Any:
+    """Draw the range chart of a ``ScanResult``; returns the matplotlib ``Figure``.
+
+    Args:
+        result: what ``scan()`` returned.
+        width, row_height: figure size in inches (height grows with the number of formats).
+        log: logarithmic count axis (rare exponents stay visible).
+    """
+    title = _title(result)
+    if result.scale is not None:
+        title += f", scaled by {result.scale:g}"
+    return _figure(result, _rows(result), title, width=width, row_height=row_height, log=log)
+
+
+def scaled_rows(advice: Any) -> list[_Row]:
+    """The rows of ``advice``'s range chart: each format unscaled, then with the advised scale,
+    both over the histogram of the unscaled data (so the scaled bands move, not the data)."""
+    before, after = advice.before, advice.after
+    if before is None or after is None:
+        raise BitprismError(
+            f"this advice has no scans to chart (it was made with formats=[]): {advice.message}")
+    if advice.scale is None:
+        raise BitprismError(
+            f"a per-{advice.granularity} scale moves each group by its own amount, so there is "
+            "no one shifted band to draw; advice.after.plot() charts the scaled data itself, "
+            "advice.plot() the sweep")
+    k = math.log2(advice.scale)
+    shown = f"2^{advice.exponent}" if advice.exponent is not None else f"{advice.scale:g}"
+    return _rows(before) + _rows(after, shift=-k, suffix=f" x {shown}")
+
+
+def advice_range_chart(advice: Any, *, width: float = 9.0, row_height: float = 1.35,
+                       log: bool = True) -> Any:
+    """The range chart of a per-tensor ``ScaleAdvice``: the histogram of the unscaled data,
+    each format's bands as they are and shifted by the advised scale, each band labelled with
+    the share of the tensor that lands in it without and with the scale."""
+    rows = scaled_rows(advice)
+    shown = rows[-1].label.rsplit(" x ", 1)[-1]
+    title = f"{_title(advice.before)}: bands without and with the scale {shown}\n{advice.message}"
+    return _figure(advice.before, rows, title, width=width, row_height=row_height, log=log)

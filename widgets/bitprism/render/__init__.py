@@ -15,6 +15,7 @@ from ..probes.cases import ProbeCase
 from ..tensors.advisor import ScaleAdvice
 from ..tensors.mx import MXResult
 from ..tensors.scan import ScanResult
+from ..tensors.scaling import ScaleSweep, ScalingComparison, ScalingReplay
 from .compare_html import comparison_html, evaluations_html
 from .compare_text import comparison_text
 from .evaluation_text import evaluation_text
@@ -23,6 +24,8 @@ from .probes_text import probe_case_text, trace_text, watch_text
 from .records import advice_html, advice_text, mx_html, mx_text
 from .scan_html import scan_html
 from .scan_text import scan_text
+from .scaling_html import replay_html, scaling_comparison_html, sweep_html
+from .scaling_text import replay_text, scaling_comparison_text, sweep_text
 
 __all__: list[str] = []
 
@@ -42,3 +45,9 @@ display.register("text", Watch, watch_text)
 display.register("html", Watch, watch_html)
 display.register("text", ProbeCase, probe_case_text)
 display.register("html", ProbeCase, probe_case_html)
+display.register("text", ScaleSweep, sweep_text)
+display.register("html", ScaleSweep, sweep_html)
+display.register("text", ScalingComparison, scaling_comparison_text)
+display.register("html", ScalingComparison, scaling_comparison_html)
+display.register("text", ScalingReplay, replay_text)
+display.register("html", ScalingReplay, replay_html)

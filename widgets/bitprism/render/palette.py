@@ -24,8 +24,11 @@ __all__ = [
     "DARK_PAGE",
     "LIGHT_PAGE",
     "SWATCHES",
-    "TILES",
     "Swatch",
+    "TABLE_BOX",
+    "TABLE_TD",
+    "TABLE_TH",
+    "TILES",
     "badge_style",
     "button_colors",
     "outcome_badge",
@@ -33,6 +36,18 @@ __all__ = [
     "theme_css",
     "tile_style",
 ]
+
+
+# the box and cells of every result table (scan, scale sweep, granularity comparison, replay)
+TABLE_BOX = (
+    "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:12px;"
+    "color:var(--jp-ui-font-color0,#1f2328);background:var(--jp-layout-color0,#ffffff);"
+    "border:1px solid var(--jp-border-color1,#d0d7de);border-radius:6px;"
+    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
+)
+TABLE_TH = ("text-align:right;padding:2px 8px;border-bottom:1px solid var(--jp-border-color1,#d0d7de);"
+            "font-weight:600")
+TABLE_TD = "text-align:right;padding:2px 8px;white-space:nowrap"
 
 
 @dataclass(frozen=True)

@@ -10,7 +10,7 @@ from __future__ import annotations
 from html import escape
 from typing import Any
 
-from .palette import badge_style, theme_css
+from .palette import TABLE_BOX, TABLE_TD, TABLE_TH, badge_style, theme_css
 from .scan_text import COLUMNS, block_nan_note, fmt_count, scan_header, scan_rows
 from .vocabulary import OUTCOMES
 
@@ -20,15 +20,7 @@ __all__ = ["scan_html", "scan_summary_html"]
 _ROLE = {"overflow": "overflow", "underflow": "underflow", "subnormal": "subnormal", "nan": "nan",
          "inf": "inf", "zero": "zero"}
 
-_BOX = (
-    "font-family:ui-monospace,SFMono-Regular,Menlo,Consolas,monospace;font-size:12px;"
-    "color:var(--jp-ui-font-color0,#1f2328);background:var(--jp-layout-color0,#ffffff);"
-    "border:1px solid var(--jp-border-color1,#d0d7de);border-radius:6px;"
-    "padding:8px 10px;display:inline-block;max-width:100%;overflow-x:auto;line-height:1.4"
-)
-_TH = ("text-align:right;padding:2px 8px;border-bottom:1px solid var(--jp-border-color1,#d0d7de);"
-       "font-weight:600")
-_TD = "text-align:right;padding:2px 8px;white-space:nowrap"
+_BOX, _TH, _TD = TABLE_BOX, TABLE_TH, TABLE_TD
 
 
 def _badge(kind: str, text: str) -> str:
