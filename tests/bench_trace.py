@@ -35,6 +35,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "widgets"))
 
 import bitprism as bp  # noqa: E402
+from bitprism.probes import compiled_rounding  # noqa: E402
 from bitprism.probes.stats import Counter, check_formats  # noqa: E402
 from bitprism.numerics.options import CastOptions  # noqa: E402
 from bench_report import DEFAULT_PATH, Lines, write_section  # noqa: E402
@@ -94,6 +95,8 @@ def main() -> None:
     x, layers = numpy_case(rng)
     out.print(f"numpy MLP forward, batch {BATCH}, width {WIDTH}, 3 layers (invented data); "
               f"{args.repeat} interleaved rounds, median ratios, best times")
+    out.print("emulated rounding: " + ("one compiled pass (numba)" if compiled_rounding.usable(
+        compiled_rounding.MIN_SIZE) else "numpy passes (numba not installed or turned off)"))
     plain = lambda: mlp(x, layers)  # noqa: E731
     line(out, "trace, no emulation / plain forward",
          _ratio(lambda: bp.trace(mlp, x, layers), plain, args.repeat), 1.5)

@@ -16,6 +16,7 @@ import pytest
 import bitprism as bp
 from bitprism.formats import get_format
 from bitprism.numerics.options import CastOptions
+from bitprism.probes import compiled_rounding
 from bitprism.probes.rounding import Rounder
 
 SIGNED = ["bfloat16", "float16", "float8_e4m3fn", "float8_e5m2", "float8_e4m3fnuz",
@@ -251,3 +252,48 @@ def test_counts_of_emulated_outputs_equal_the_scan() -> None:
     for f in ref.formats:
         c = rec.count(f.name)
         assert (c.overflow, c.underflow, c.subnormal) == (f.overflow, f.underflow, f.subnormal)
+
+
+# the compiled magic-constant pass (compiled_rounding) against its numpy twin and the cast: the
+# formats whose Rounder takes the magic-constant rounding (roundTiesToEven, subnormals kept)
+MAGIC = [n for n in SIGNED if Rounder(get_format(n), CastOptions(), None).magic]
+
+
+def _twins(name: str) -> tuple[Rounder, Rounder]:
+    fast = Rounder(get_format(name), CastOptions(), None)
+    plain = Rounder(get_format(name), CastOptions(), None)
+    plain.compiled = False
+    return fast, plain
+
+
+@pytest.mark.skipif(not compiled_rounding.usable(compiled_rounding.MIN_SIZE),
+                    reason="numba not installed or turned off")
+@pytest.mark.parametrize("name", MAGIC)
+def test_compiled_rounding_equals_its_numpy_twin_and_the_cast(name: str) -> None:
+    fast, plain = _twins(name)
+    assert fast.compiled and fast.magic
+    rng = np.random.default_rng(7)
+    # every float32 exponent and sign with random low bits, plus every bfloat16 pattern padded
+    # with the bits that decide ties, and the float64 values of the other tests
+    codes = np.arange(1 << 16, dtype=np.uint32) << 16
+    low = rng.integers(0, 1 << 16, 1 << 16, dtype=np.uint32)
+    ties = np.array([0, 0x8000, 0x7FFF, 0x8001], np.uint32)[rng.integers(0, 4, 1 << 16)]
+    x32 = np.concatenate([(codes | low).view(np.float32), (codes | ties).view(np.float32)])
+    x64 = _values(50_000, seed=5)
+    with np.errstate(invalid="ignore"):
+        for x in (x32, x64):
+            want = bp.cast(x, name)
+            assert _same(fast(x), want) and _same(plain(x), want)
+        # in place, as results are rounded where they are
+        y = x64.copy()
+        fast(y, out=y)
+        assert _same(y, bp.cast(x64, name))
+    # sums: the float64 sum rounded once (and in place into the running sum)
+    a = bp.cast(_values(30_000, seed=8), name)
+    b = _values(30_000, seed=9)
+    with np.errstate(all="ignore"):
+        want = bp.cast(a + b, name)
+        assert _same(fast.sum(a, b), want) and _same(plain.sum(a, b), want)
+        acc = a.copy()
+        fast.sum(acc, b, out=acc)
+    assert _same(acc, want)

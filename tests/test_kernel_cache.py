@@ -26,11 +26,13 @@ needs_numba = pytest.mark.skipif(not available(), reason="numba not installed")
 # Every compiled path of scan: counts only (float32 and float64 patterns, with and without the
 # exponent histogram), histogram and exact quantiles (the error kernels and the fast casts),
 # a read-only input (a memmapped file is one: numba types it apart from a writable array),
-# the positions search, and MX quantization. Prints the cache misses of every kernel.
+# the positions search, MX quantization, and the emulated rounding of a trace (float32 and
+# float64 inputs, running sums). Prints the cache misses of every kernel.
 CHILD = r"""
 import json, numpy as np
 from numba.core.dispatcher import Dispatcher
 import bitprism as bp
+from bitprism.probes import compiled_rounding
 from bitprism.tensors.scan.compiled import error_kernels, fast_casts, pattern_counts
 
 # kernels first built on worker threads (8M elements: two blocks), where they once raced
@@ -45,8 +47,12 @@ for data in (x, x.astype(np.float64), ro):
         r = bp.scan(data, formats, progress=False, quantiles=q, exponents=q is False)
         r.where("overflow", "float16")
 bp.mx_quantize(x[np.isfinite(x)], "mxfp8_e4m3")
+a = np.resize(x[np.isfinite(x)], (64, 128))
+bp.trace(np.matmul, a, a.T.copy(), emulate="bfloat16")
+bp.trace(np.add, a.astype(np.float64), 0.5, emulate="float16")
 kernels = [k for ks in pattern_counts._kernels().values() for k in ks]
 kernels += list(error_kernels._kernels()) + list(fast_casts._kernels())
+kernels.append(compiled_rounding._kernels())
 print(json.dumps({k.py_func.__qualname__ + str(i): sum(k.stats.cache_misses.values())
                   for i, k in enumerate(kernels) if isinstance(k, Dispatcher)}))
 """

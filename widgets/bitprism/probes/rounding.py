@@ -22,7 +22,10 @@ format's specials are honoured there):
   smallest normal or past the largest finite value go to the cast.
 
 Directed and stochastic rounding always take the cast. The work runs in blocks through reused
-buffers (``scratch``). Round to odd (Boldo and Melquiond, "Emulation of FMA and correctly
+buffers (``scratch``); with numba, arrays of float32 or float64 take the magic-constant rounding
+in one compiled pass instead (``compiled_rounding``, of which these numpy passes are the twin).
+
+Round to odd (Boldo and Melquiond, "Emulation of FMA and correctly
 rounded sums: proved algorithms using rounding to odd", IEEE TC 2008): a float64 result that
 is not exact moved to the neighbour whose last bit is odd, rounded once more to any format of
 at most 51 significant bits, equals the exact value rounded once; ``nudge_to_odd`` does it,
@@ -40,6 +43,7 @@ import numpy as np
 from ..formats import Format
 from ..numerics.codes import decode, encode_with
 from ..numerics.options import CastOptions
+from . import compiled_rounding
 from .scratch import BLOCK, buffer
 
 __all__ = [
@@ -134,6 +138,8 @@ class Rounder:
         self.magic32_add = ((23 - t) << 23) | (1 << 22)
         self.ties_even = options.rounding == "roundTiesToEven"
         self.signed_zero = fmt.has_negative_zero
+        # the magic-constant rounding in one compiled pass (tests turn it off for the twin)
+        self.compiled = self.magic
 
     # ----- arrays ----------------------------------------------------------------------------
     def __call__(self, x: Any, out: np.ndarray | None = None) -> np.ndarray:
@@ -151,6 +157,9 @@ class Rounder:
             res[...] = self._cast(arr).reshape(arr.shape)
             return res
         flat, dest = arr.reshape(-1), res.reshape(-1)
+        if self._use_compiled(flat):
+            self._compiled(compiled_rounding.round_nearest, (flat,), dest)
+            return res
         wide = arr.dtype == np.float64
 
         narrow = arr.dtype == np.float32 and self.magic32
@@ -169,6 +178,34 @@ class Rounder:
         for start in range(0, flat.size, BLOCK):
             work(start, min(start + BLOCK, flat.size))
         return res
+
+    def _use_compiled(self, flat: np.ndarray) -> bool:
+        return self.compiled and flat.dtype in (np.float32, np.float64) and \
+            compiled_rounding.usable(flat.size)
+
+    def _compiled(self, kernel: Callable[..., int], sources: tuple[np.ndarray, ...],
+                  dest: np.ndarray) -> None:
+        """``kernel`` (of ``compiled_rounding``) from ``sources`` into ``dest``; the values it
+        flags (past the largest finite value, Inf, NaN: left in ``dest`` unrounded) go
+        through the cast. A loop whose output overlaps its input does not vectorize (numba's
+        overlap check sends it to the scalar loop, 5x slower), so in place it runs a block at
+        a time into a buffer."""
+        n = dest.size
+        flags = np.empty(n, np.bool_)
+        args = (int(self.emin_field), int(self.magic_add), self.max_finite, self.signed_zero)
+        if not any(np.may_share_memory(s, dest) for s in sources):
+            count = kernel(*sources, dest, flags, *args)
+        else:
+            count = 0
+            work = buffer("round-out", np.float64, min(n, BLOCK))
+            for start in range(0, n, BLOCK):
+                stop = min(start + BLOCK, n)
+                part = work[: stop - start]
+                count += kernel(*(s[start:stop] for s in sources), part, flags[start:stop], *args)
+                dest[start:stop] = part
+        if count:
+            where = np.flatnonzero(flags)
+            dest[where] = self._cast(dest[where])
 
     def _block(self, xb: np.ndarray, ob: np.ndarray, scratch_input: bool = False) -> None:
         """One block (``ob`` may share ``xb``'s memory; ``scratch_input``: ``xb`` is a work
@@ -279,6 +316,9 @@ class Rounder:
             np.add(a, b, out=res)
             return res
         fa, fb, dest = a.reshape(-1), b.reshape(-1), res.reshape(-1)
+        if self._use_compiled(fa):
+            self._compiled(compiled_rounding.sum_nearest, (fa, fb), dest)
+            return res
 
         def work(start: int, stop: int) -> None:
             ab, bb = fa[start:stop], fb[start:stop]

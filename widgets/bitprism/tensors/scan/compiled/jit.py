@@ -1,4 +1,5 @@
-"""How every compiled loop of the scan is made: numba's ``njit``, optional, cached on disk.
+"""How every compiled loop is made (the scan's, and the probes' rounding): numba's ``njit``,
+optional, cached on disk.
 
 * ``available()``: numba is importable and not turned off (``BITPRISM_NUMBA=0``); without it
   every loop has a numpy twin that gives the same numbers.
