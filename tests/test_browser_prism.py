@@ -168,6 +168,16 @@ OVERFLOW_JS = """
       bad.push('cut label: ' + el.textContent);
     }
   }
+  // a zone under a band shows its whole name or only its mark: nothing on its line is cut
+  for (const zone of root.querySelectorAll('.bitprism-zone')) {
+    const first = zone.firstElementChild;
+    const shown = Array.from(zone.children).filter((c) => first && c.offsetTop === first.offsetTop);
+    if (zone.scrollWidth > zone.clientWidth + 1 ||
+        shown.some((c) => c.scrollWidth > c.clientWidth + 1 ||
+                          c.getBoundingClientRect().right > zone.getBoundingClientRect().right + 1)) {
+      bad.push('cut zone name: ' + zone.title);
+    }
+  }
   return bad.slice(0, 12);
 }
 """

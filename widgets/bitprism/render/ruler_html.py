@@ -342,12 +342,19 @@ def _zone_strip(f: Format, r: Ruler, flush: bool = False) -> str:
     out = []
     for z, a, b in runs:
         o = OUTCOMES[z]
-        label = o.mark if b - a < 5 else f"{o.mark} {o.name}"
+        # the name, when the run is long enough to hold it, follows the mark as one unbreakable
+        # piece in a one-line box that wraps: where the column is too narrow for it, it moves
+        # to the hidden second line, so a zone shows its whole name or its mark, never a cut name
+        name = "" if b - a < 5 else (
+            '<span style="white-space:nowrap;flex-shrink:0;max-width:100%;overflow:hidden">'
+            f"{_e(o.name)}</span>")
         title = f"{f.name}: {o.name} zone ({o.meaning})"
         out.append(
-            f'<span title="{_e(title)}" style="grid-column:{a}/{b + 1};grid-row:2;'
-            f'{outcome_style(z)};font-size:9px;line-height:11px;overflow:hidden;'
-            f'white-space:nowrap;text-align:left;padding-left:2px">{_e(label)}</span>')
+            f'<span class="bitprism-zone" title="{_e(title)}" '
+            f'style="grid-column:{a}/{b + 1};grid-row:2;'
+            f'{outcome_style(z)};font-size:9px;line-height:11px;height:11px;overflow:hidden;'
+            f'display:flex;flex-wrap:wrap;align-content:flex-start;column-gap:3px;'
+            f'padding-left:2px"><span>{_e(o.mark)}</span>{name}</span>')
     return "".join(out)
 
 
