@@ -28,6 +28,7 @@ __all__ = [
     "Specials",
     "format_aliases",
     "format_key",
+    "format_of_dtype",
     "get_format",
 ]
 
@@ -517,6 +518,11 @@ def _by_dtype(spec: Any) -> Format | None:
         if fmt.is_dtype(dt):
             return fmt
     return None
+
+
+def format_of_dtype(dt: np.dtype) -> Format | None:
+    """The built-in format whose values a numpy or ml_dtypes dtype holds, or None."""
+    return _by_dtype(dt)
 
 
 def format_key(name: str) -> str:

@@ -16,7 +16,7 @@ from typing import Any, Callable
 import numpy as np
 
 from ..errors import BitprismError, UnsupportedInputError
-from ..formats import Format, FormatLike, get_format
+from ..formats import Format, FormatLike, format_of_dtype, get_format
 from .exact import as_exact
 from .kernel import CHUNK, SOURCE32, encode_bits, encode_table, source_for, table_eligible
 from .options import CastOptions, Overflow, Rounding, Subnormals, resolve_options
@@ -67,7 +67,7 @@ def _float_dtype_of(arr: np.ndarray) -> np.dtype:
     dt = arr.dtype
     if dt == np.float32 or dt == np.float64:
         return dt
-    if dt.kind == "f" and dt.itemsize <= 4 or (dt.kind == "V" and _is_ml_float(dt)):
+    if dt.kind == "f" and dt.itemsize <= 4 or (dt.kind == "V" and format_of_dtype(dt) is not None):
         return np.dtype(np.float32)  # float16 and every ml_dtypes float fit float32 exactly
     if dt.kind in "iub":
         return np.dtype(np.float64)
@@ -85,14 +85,6 @@ def _float_dtype_of(arr: np.ndarray) -> np.dtype:
         f"cannot cast {dt} data: expected real numbers (float, ml_dtypes float, int or bool "
         f"arrays); got {dt}"
     )
-
-
-def _is_ml_float(dt: np.dtype) -> bool:
-    try:
-        get_format(dt)
-    except BitprismError:
-        return False
-    return True
 
 
 def _check_int_range(arr: np.ndarray) -> None:

@@ -7,7 +7,7 @@ from typing import Any, Callable, Iterator
 import numpy as np
 
 from ..errors import BitprismError, UnsupportedInputError
-from ..formats import Format, get_format
+from ..formats import Format, format_of_dtype, get_format
 from ..numerics.options import CastOptions, resolve_options
 from .capture import check_capture_mib
 from .emulate import Emulator
@@ -19,6 +19,7 @@ __all__ = [
     "check_array",
     "check_callable",
     "holds_torch",
+    "map_items",
     "probe_settings",
     "real_dtype",
     "walk",
@@ -91,6 +92,22 @@ def walk(value: Any, where: str) -> Iterator[tuple[str, Any]]:
             yield from walk(item, f"{where}[{key!r}]")
 
 
+def map_items(value: Any, leaf: Callable[[Any, str], Any], where: str,
+              any_tuple: bool = False) -> Any:
+    """``value`` with ``leaf(item, name)`` in place of every item that is not a plain list,
+    tuple or dict (those are rebuilt around their mapped items; ``any_tuple``: every tuple
+    is, a named tuple keeping its type, another subclass becoming a plain tuple)."""
+    kind = type(value)
+    if kind is list:
+        return [map_items(v, leaf, f"{where}[{i}]", any_tuple) for i, v in enumerate(value)]
+    if kind is tuple or any_tuple and isinstance(value, tuple):
+        items = [map_items(v, leaf, f"{where}[{i}]", any_tuple) for i, v in enumerate(value)]
+        return kind(*items) if hasattr(value, "_fields") else tuple(items)
+    if kind is dict:
+        return {k: map_items(v, leaf, f"{where}[{k!r}]", any_tuple) for k, v in value.items()}
+    return leaf(value, where)
+
+
 def holds_torch(args: tuple[Any, ...], kwargs: dict[str, Any]) -> bool:
     """Whether any argument (or an item of one) is a torch tensor or module, told by the
     class's module name so torch is not imported to ask."""
@@ -108,7 +125,7 @@ def real_dtype(dtype: np.dtype) -> bool:
     kind = dtype.kind
     if kind in "iub" or kind == "f" and dtype.itemsize <= 8:
         return True
-    return kind == "V" and dtype.names is None and _ml_float(dtype)
+    return kind == "V" and dtype.names is None and format_of_dtype(dtype) is not None
 
 
 def check_array(arr: np.ndarray, where: str) -> None:
@@ -121,14 +138,6 @@ def check_array(arr: np.ndarray, where: str) -> None:
         f"{where}: a probe traces real numbers (float, ml_dtypes float, int or bool arrays); "
         f"got a {what} array of dtype {arr.dtype!r}"
     )
-
-
-def _ml_float(dtype: np.dtype) -> bool:
-    try:
-        get_format(dtype)
-    except BitprismError:
-        return False
-    return True
 
 
 def check_callable(fn: Any, what: str = "fn") -> Callable[..., Any]:

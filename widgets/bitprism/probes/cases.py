@@ -38,6 +38,7 @@ __all__ = [
     "CASE_SCHEMA",
     "CaseWindow",
     "ProbeCase",
+    "SharesCases",
     "first_position",
     "trace_case",
     "watch_case",
@@ -319,15 +320,40 @@ def _counts_facts(rec: RecordCounts) -> list[tuple[str, str]]:
     return facts
 
 
+class SharesCases:
+    """``save_case`` and ``export_html`` of a probe result (``Trace``, ``Watch``) whose
+    ``case()`` builds its first-event ``ProbeCase``."""
+
+    def case(self, event: str | None = None, fmt: Any = None, note: str = "") -> ProbeCase:
+        raise NotImplementedError
+
+    def save_case(self, path: str | os.PathLike[str], event: str | None = None, fmt: Any = None,
+                  note: str = "") -> Path:
+        """Write the first-event view as a case file (JSON); ``bitprism.open_case`` reads it."""
+        return self.case(event, fmt, note).save(path)
+
+    def export_html(self, path: str | os.PathLike[str], event: str | None = None,
+                    fmt: Any = None, note: str = "") -> Path:
+        """Write the first-event view as one self-contained HTML page (the case inside)."""
+        return self.case(event, fmt, note).export_html(path)
+
+
+def _event_windows(probe: Any, rec: OpRecord | WatchRecord, event: str, fmt: str | None
+                   ) -> tuple[CaseWindow, ...]:
+    """The windows of a record's kept arrays around its first ``event`` element (none when
+    the arrays were not kept)."""
+    cap = probe.captures.kept.get(rec.index)
+    if cap is None:
+        return ()
+    at = first_position(cap.output, rec, probe.formats, (event, fmt), probe.options)
+    return _windows(cap.output, cap.inputs, at)
+
+
 def trace_case(trace: Any, event: str | None, fmt: Any, note: str) -> ProbeCase:
     """The case of a trace's first event (``event`` None: the earliest one)."""
     ev, name, rec = _pick(trace.first_bad(), event, fmt, trace.first, "trace")
     assert isinstance(rec, OpRecord)
-    windows: tuple[CaseWindow, ...] = ()
-    if rec.index in trace.captures.kept:
-        cap = trace.captures.kept[rec.index]
-        at = first_position(cap.output, rec, trace.formats, (ev, name), trace.options)
-        windows = _windows(cap.output, cap.inputs, at)
+    windows = _event_windows(trace, rec, ev, name)
     facts = [("traced function", f"{trace.function} ({trace.backend})"),
              ("operation", f"#{rec.index} {rec.name}"),
              ("inputs", ", ".join(f"{s} {d}" for s, d in zip(rec.input_shapes, rec.input_dtypes))
@@ -350,11 +376,7 @@ def watch_case(w: Any, event: str | None, fmt: Any, note: str) -> ProbeCase:
     """The case of a watch's first event (``event`` None: the earliest one)."""
     ev, name, rec = _pick(w.first_bad(), event, fmt, w.first, "watch")
     assert isinstance(rec, WatchRecord)
-    windows: tuple[CaseWindow, ...] = ()
-    if rec.index in w.captures.kept:
-        cap = w.captures.kept[rec.index]
-        at = first_position(cap.output, rec, w.formats, (ev, name), w.options)
-        windows = _windows(cap.output, cap.inputs, at)
+    windows = _event_windows(w, rec, ev, name)
     facts = [("module", f"{rec.module or '(the watched module)'} ({rec.module_type})"),
              ("tensor", f"{rec.kind}, call {rec.call}, {rec.shape} {rec.dtype}")]
     facts += _counts_facts(rec)

@@ -15,7 +15,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .arguments import check_array
+from .arguments import check_array, map_items
 from .numpy_ops import wrap
 from .session import Session
 from .traced_array import TracedArray
@@ -24,52 +24,39 @@ __all__ = ["run_numpy", "shadow_result", "unwrap_result"]
 
 
 def _prepare(session: Session, value: Any, where: str) -> Any:
-    if isinstance(value, np.ndarray):
-        check_array(value, where)
-        arr = value.view(np.ndarray) if isinstance(value, TracedArray) else value
+    """An argument as the traced call gets it: arrays checked, rounded on entry when
+    emulating, shadowed and wrapped; lists, tuples and dicts walked; anything else untouched."""
+
+    def leaf(item: Any, name: str) -> Any:
+        if not isinstance(item, np.ndarray):
+            return item
+        check_array(item, name)
+        arr = item.view(np.ndarray) if isinstance(item, TracedArray) else item
         shadow = arr.astype(np.float64) if session.shadow and arr.dtype.kind in "fV" else None
         if session.emulator is not None and arr.dtype.kind in "fV":
             arr = session.emulator.entry(arr).reshape(arr.shape)
         return wrap(session, arr, None, shadow)  # counted when an operation needs to know
-    if isinstance(value, list) and type(value) is list:
-        return [_prepare(session, v, f"{where}[{i}]") for i, v in enumerate(value)]
-    if isinstance(value, tuple) and type(value) is tuple:
-        return tuple(_prepare(session, v, f"{where}[{i}]") for i, v in enumerate(value))
-    if isinstance(value, dict) and type(value) is dict:
-        return {k: _prepare(session, v, f"{where}[{k!r}]") for k, v in value.items()}
-    return value
+
+    return map_items(value, leaf, where)
 
 
 def unwrap_result(value: Any) -> Any:
     """A result with every traced array made a plain numpy array (lists, tuples, dicts
     walked)."""
-    if isinstance(value, TracedArray):
-        return value.view(np.ndarray)
-    if isinstance(value, list) and type(value) is list:
-        return [unwrap_result(v) for v in value]
-    if isinstance(value, tuple):
-        items = [unwrap_result(v) for v in value]
-        return type(value)(*items) if hasattr(value, "_fields") else tuple(items)
-    if isinstance(value, dict) and type(value) is dict:
-        return {k: unwrap_result(v) for k, v in value.items()}
-    return value
+    return map_items(value, lambda v, _: v.view(np.ndarray) if isinstance(v, TracedArray) else v,
+                     "result", any_tuple=True)
 
 
 def shadow_result(value: Any) -> Any:
     """The float64 shadow of a result, in the same structure (values without a shadow as
     they are)."""
-    if isinstance(value, TracedArray):
-        if value._bp_shadow is not None:
-            return np.asarray(value._bp_shadow)
-        return value.view(np.ndarray)
-    if isinstance(value, list) and type(value) is list:
-        return [shadow_result(v) for v in value]
-    if isinstance(value, tuple):
-        items = [shadow_result(v) for v in value]
-        return type(value)(*items) if hasattr(value, "_fields") else tuple(items)
-    if isinstance(value, dict) and type(value) is dict:
-        return {k: shadow_result(v) for k, v in value.items()}
-    return value
+
+    def leaf(v: Any, _: str) -> Any:
+        if not isinstance(v, TracedArray):
+            return v
+        return v.view(np.ndarray) if v._bp_shadow is None else np.asarray(v._bp_shadow)
+
+    return map_items(value, leaf, "result", any_tuple=True)
 
 
 def run_numpy(session: Session, fn: Callable[..., Any], args: tuple[Any, ...],

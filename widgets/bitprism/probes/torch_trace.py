@@ -25,6 +25,7 @@ from torch.overrides import TorchFunctionMode
 
 from ..errors import BitprismError, UnsupportedInputError
 from ..tensors.adapters import as_array
+from .arguments import map_items
 from .location import caller, skip_library
 from .memo import Memo
 from .numpy_ops import VALUE_FUNCTIONS, VALUE_UFUNCS
@@ -373,33 +374,31 @@ def _prepare(state: _State, value: Any, where: str) -> Any:
     """An argument as the traced call gets it: tensors checked (CPU, real), rounded on entry
     when emulating, shadowed; lists, tuples and dicts walked; anything else untouched."""
     session = state.session
-    if isinstance(value, torch.Tensor):
-        if value.device.type != "cpu":
-            raise BitprismError(f"{where}: a torch trace reads CPU tensors; got one on "
-                                f"{value.device}")
-        if value.is_complex():
-            raise UnsupportedInputError(f"{where}: a trace reads real numbers; got a complex "
-                                        f"tensor ({value.dtype})")
-        arr = _numpy(value)
-        out = value
-        if session.emulator is not None and value.is_floating_point():
-            out = _to_tensor(session.emulator.entry(arr).reshape(tuple(value.shape)))
+
+    def leaf(item: Any, name: str) -> Any:
+        if isinstance(item, np.ndarray):
+            raise UnsupportedInputError(
+                f"{name}: a torch trace takes torch tensors; got a numpy array beside them "
+                "(trace numpy and torch code separately, or pass torch.from_numpy(...))")
+        if not isinstance(item, torch.Tensor):
+            return item
+        if item.device.type != "cpu":
+            raise BitprismError(f"{name}: a torch trace reads CPU tensors; got one on "
+                                f"{item.device}")
+        if item.is_complex():
+            raise UnsupportedInputError(f"{name}: a trace reads real numbers; got a complex "
+                                        f"tensor ({item.dtype})")
+        arr = _numpy(item)
+        out = item
+        if session.emulator is not None and item.is_floating_point():
+            out = _to_tensor(session.emulator.entry(arr).reshape(tuple(item.shape)))
             state.emulated.set(out, _version(out))
         state.stats.set(out, (_version(out), session.counter.stats(_numpy(out))))
-        if session.shadow and value.is_floating_point():
-            state.shadows.set(out, value.detach().double())
+        if session.shadow and item.is_floating_point():
+            state.shadows.set(out, item.detach().double())
         return out
-    if isinstance(value, np.ndarray):
-        raise UnsupportedInputError(
-            f"{where}: a torch trace takes torch tensors; got a numpy array beside them "
-            "(trace numpy and torch code separately, or pass torch.from_numpy(...))")
-    if isinstance(value, list) and type(value) is list:
-        return [_prepare(state, v, f"{where}[{i}]") for i, v in enumerate(value)]
-    if isinstance(value, tuple) and type(value) is tuple:
-        return tuple(_prepare(state, v, f"{where}[{i}]") for i, v in enumerate(value))
-    if isinstance(value, dict) and type(value) is dict:
-        return {k: _prepare(state, v, f"{where}[{k!r}]") for k, v in value.items()}
-    return value
+
+    return map_items(value, leaf, where)
 
 
 def run_torch(session: Session, fn: Callable[..., Any], args: tuple[Any, ...],

@@ -11,9 +11,7 @@ Both halves fill one ``Session``, which becomes the ``Trace``.
 from __future__ import annotations
 
 import inspect
-import os
 from dataclasses import dataclass, field
-from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
@@ -24,6 +22,7 @@ from ..formats import Format
 from ..numerics.options import CastOptions
 from .arguments import check_callable, holds_torch, probe_settings
 from .capture import CaptureStore
+from .cases import ProbeCase, SharesCases, first_position, trace_case
 from .numpy_trace import run_numpy
 from .records import EVENTS, OpRecord, first_record
 from .session import Session
@@ -33,7 +32,7 @@ __all__ = ["Trace", "trace"]
 
 
 @dataclass(frozen=True)
-class Trace(Plottable):
+class Trace(SharesCases, Plottable):
     """What ``trace()`` saw: one ``OpRecord`` per operation, and the function's result.
 
     Attributes:
@@ -116,8 +115,6 @@ class Trace(Plottable):
         event is born selected)."""
         rec = self._record(record)
         out = self.output(rec)
-        from .cases import first_position
-
         return open_view(out, self.formats, first_position(out, rec, self.formats))
 
     def inputs(self, record: OpRecord | int) -> list[Any]:
@@ -125,21 +122,9 @@ class Trace(Plottable):
         return [open_view(a, self.formats, None) for a in self.input_arrays(record)]
 
     # ----- case files ---------------------------------------------------------------------------
-    def case(self, event: str | None = None, fmt: Any = None, note: str = "") -> Any:
+    def case(self, event: str | None = None, fmt: Any = None, note: str = "") -> ProbeCase:
         """The first-event view as a ``ProbeCase`` (``event`` None: the earliest event born)."""
-        from .cases import trace_case
-
         return trace_case(self, event, fmt, note)
-
-    def save_case(self, path: str | os.PathLike[str], event: str | None = None, fmt: Any = None,
-                  note: str = "") -> Path:
-        """Write the first-event view as a case file (JSON); ``bitprism.open_case`` reads it."""
-        return Path(self.case(event, fmt, note).save(path))
-
-    def export_html(self, path: str | os.PathLike[str], event: str | None = None,
-                    fmt: Any = None, note: str = "") -> Path:
-        """Write the first-event view as one self-contained HTML page (the case inside)."""
-        return Path(self.case(event, fmt, note).export_html(path))
 
 
 def _names(fn: Callable[..., Any], count: int) -> list[str]:

@@ -16,10 +16,8 @@ imported when the watch starts (the module is a torch module, so torch is loaded
 
 from __future__ import annotations
 
-import os
 import warnings
 from functools import partial
-from pathlib import Path
 from typing import Any, Sequence
 
 import numpy as np
@@ -29,6 +27,7 @@ from ..errors import BitprismError
 from ..tensors.adapters import as_array
 from .arguments import probe_settings
 from .capture import CaptureStore
+from .cases import ProbeCase, SharesCases, first_position, watch_case
 from .memo import Memo
 from .records import FormatCounts, WatchRecord, first_record
 from .session import Operand, born_counts, created_count, new_events
@@ -88,7 +87,7 @@ def _check_module(module: Any) -> Any:
     return module
 
 
-class Watch(Plottable):
+class Watch(SharesCases, Plottable):
     """Per-module records of a torch model (see the module docstring). Use it as a context
     manager; the records, ``first()``, ``table()`` and the views read what it saw so far."""
 
@@ -287,29 +286,15 @@ class Watch(Plottable):
 
     def open(self, name: str, kind: str | None = None) -> Any:
         """A ``TensorPrism`` of what ``output(name, kind)`` returns."""
-        from .cases import first_position
-
         arr = self.output(name, kind)
         rec = None if name in self._live and kind in (None, "weight") else self._pick(name, kind)
         selected = first_position(arr, rec, self.formats) if rec is not None else None
         return open_view(arr, self.formats, selected)
 
     # ----- case files --------------------------------------------------------------------------
-    def case(self, event: str | None = None, fmt: Any = None, note: str = "") -> Any:
+    def case(self, event: str | None = None, fmt: Any = None, note: str = "") -> ProbeCase:
         """The first-event view as a ``ProbeCase`` (``event`` None: the earliest one)."""
-        from .cases import watch_case
-
         return watch_case(self, event, fmt, note)
-
-    def save_case(self, path: str | os.PathLike[str], event: str | None = None, fmt: Any = None,
-                  note: str = "") -> Path:
-        """Write the first-event view as a case file (JSON); ``bitprism.open_case`` reads it."""
-        return Path(self.case(event, fmt, note).save(path))
-
-    def export_html(self, path: str | os.PathLike[str], event: str | None = None,
-                    fmt: Any = None, note: str = "") -> Path:
-        """Write the first-event view as one self-contained HTML page (the case inside)."""
-        return Path(self.case(event, fmt, note).export_html(path))
 
 
 def watch(module: Any, formats: Any = None, grads: bool = False, weights: bool = True,

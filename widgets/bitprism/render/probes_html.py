@@ -6,7 +6,6 @@ every count that wears a colour also says its word or mark, so colour is never t
 
 from __future__ import annotations
 
-import math
 from html import escape
 from typing import Any, Sequence
 
@@ -19,6 +18,7 @@ from .probes_text import (
     trace_header,
     watch_header,
     watch_rows,
+    window_value,
 )
 
 __all__ = ["probe_case_html", "trace_html", "watch_html"]
@@ -114,14 +114,6 @@ def watch_html(w: Any) -> str:
     return _box("watch", watch_header(w), firsts, table)
 
 
-def _value(v: float) -> str:
-    if math.isnan(v):
-        return "NaN"
-    if math.isinf(v):
-        return "Inf" if v > 0 else "-Inf"
-    return f"{v:.6g}"
-
-
 def _window_html(w: Any, event: str) -> str:
     vals = w.values()
     nrows, ncols = vals.shape if vals.size else (0, 0)
@@ -130,7 +122,7 @@ def _window_html(w: Any, event: str) -> str:
     for i in range(nrows):
         cells = [f'<th style="{_TH};text-align:right">{w.row + i}</th>']
         for j in range(ncols):
-            text = _value(float(vals[i, j]))
+            text = window_value(float(vals[i, j]))
             if w.mark == (i, j):
                 style = outcome_style(_ROLE[event]) or "outline:2px solid currentColor"
                 cells.append(f'<td style="{_TD};text-align:right;{style};font-weight:600" '

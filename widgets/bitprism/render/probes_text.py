@@ -28,6 +28,7 @@ __all__ = [
     "watch_header",
     "watch_rows",
     "watch_text",
+    "window_value",
 ]
 
 MAX_ROWS = 40  # a longer timeline is cut down to the rows around its first events
@@ -209,7 +210,8 @@ def watch_text(w: Any) -> str:
     return "\n".join(lines)
 
 
-def _value(v: float) -> str:
+def window_value(v: float) -> str:
+    """One value of a case window: six significant digits, NaN, Inf, -Inf."""
     if math.isnan(v):
         return "NaN"
     if math.isinf(v):
@@ -236,7 +238,7 @@ def probe_case_text(case: Any) -> str:
         lines.append("")
         lines.append(f"{w.label}: {w.shape} {w.dtype}, rows {w.row}..{w.row + nrows - 1}, "
                      f"columns {w.col}..{w.col + ncols - 1}")
-        cells = [[_value(float(v)) + ("*" if w.mark == (i, j) else "") for j, v in
+        cells = [[window_value(float(v)) + ("*" if w.mark == (i, j) else "") for j, v in
                   enumerate(row)] for i, row in enumerate(vals)]
         width = max([len(c) for row in cells for c in row] + [len(str(w.col + ncols))])
         head = " " * 6 + " ".join(str(w.col + j).rjust(width) for j in range(ncols))

@@ -31,6 +31,7 @@ __all__ = [
     "code_to_hex",
     "format_from_json",
     "format_to_json",
+    "formats_from_json",
     "get_format_layout",
     "options_from_json",
     "options_to_json",
@@ -212,6 +213,20 @@ def format_from_json(value: Any, where: str) -> Format:
         return Format(name, w, t, bias, specials, signed, has_zero, storage)  # type: ignore[arg-type]
     except BitprismError as exc:
         raise CaseFieldError(where, str(exc)) from None
+
+
+def formats_from_json(value: Any, widget: str, where: str = "state.formats") -> list[Format]:
+    """A widget's list of formats: at least one, at most ``MAX_FORMATS``, no name twice."""
+    raw = want_list(value, where, MAX_FORMATS)
+    if not raw:
+        raise CaseFieldError(where, f"a {widget} needs at least one format")
+    fmts: list[Format] = []
+    for i, spec in enumerate(raw):
+        f = format_from_json(spec, f"{where}[{i}]")
+        if any(g.name == f.name for g in fmts):
+            raise CaseFieldError(f"{where}[{i}]", f"format {f.name!r} is listed twice")
+        fmts.append(f)
+    return fmts
 
 
 def check_storable_format(fmt: Format, where: str) -> None:

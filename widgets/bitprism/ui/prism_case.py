@@ -26,13 +26,12 @@ from ..errors import ParseError
 from ..formats import FORMATS, Format
 from ..render.widget_html import snapshot_html
 from .case_codecs import (
-    MAX_FORMATS,
     MAX_TEXT_CHARS,
     CaseFieldError,
     code_from_hex,
     code_to_hex,
-    format_from_json,
     format_to_json,
+    formats_from_json,
     options_from_json,
     options_to_json,
     want_bool,
@@ -81,15 +80,7 @@ def _check_state(state: Any) -> dict[str, Any]:
         parse(value)
     except ParseError as exc:
         raise CaseFieldError("state.value", f"not a number: {exc.reason} (column {exc.column})")
-    raw_formats = want_list(state["formats"], "state.formats", MAX_FORMATS)
-    if not raw_formats:
-        raise CaseFieldError("state.formats", "a Prism needs at least one format")
-    fmts: list[Format] = []
-    for i, spec in enumerate(raw_formats):
-        f = format_from_json(spec, f"state.formats[{i}]")
-        if f in fmts or any(g.name == f.name for g in fmts):
-            raise CaseFieldError(f"state.formats[{i}]", f"format {f.name!r} is listed twice")
-        fmts.append(f)
+    fmts = formats_from_json(state["formats"], "Prism")
     options = options_from_json(state.get("options", {}), "state.options")
     via = want_str(state.get("via", ""), "state.via", ("",) + tuple(FORMATS))
     aligned = want_bool(state.get("aligned", True), "state.aligned")

@@ -32,11 +32,10 @@ from ..render.grid_html import VALUE_SCALES, VIEWS
 from ..tensors.scan import ScanResult
 from ..tensors.window import ERROR_UNITS, MAX_SIDE, Placed
 from .case_codecs import (
-    MAX_FORMATS,
     CaseFieldError,
     check_window_size,
-    format_from_json,
     format_to_json,
+    formats_from_json,
     options_from_json,
     options_to_json,
     want_int,
@@ -116,15 +115,7 @@ def tensor_case_state(tp: Any, format_a: Format, format_b: Format,
 def read_tensor_case(state: Any) -> TensorCase:
     """Every field checked before anything is built (``CaseFieldError`` names a bad one)."""
     want_object(state, "state", required=("formats", "data"), optional=_KEYS)
-    fl = want_list(state["formats"], "state.formats", MAX_FORMATS)
-    if not fl:
-        raise CaseFieldError("state.formats", "at least one format is needed")
-    fmts: list[Format] = []
-    for i, v in enumerate(fl):
-        f = format_from_json(v, f"state.formats[{i}]")
-        if any(g.name == f.name for g in fmts):
-            raise CaseFieldError(f"state.formats[{i}]", f"format {f.name!r} is listed twice")
-        fmts.append(f)
+    fmts = formats_from_json(state["formats"], "TensorPrism")
     opts = options_from_json(state.get("options", {}), "state.options")
     names = [f.name for f in fmts]
     ab = {}
