@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import secrets
 import shutil
 import signal
@@ -18,13 +19,22 @@ import sys
 import time
 import urllib.error
 import urllib.request
+from contextlib import contextmanager
 from dataclasses import dataclass, field
+from html.parser import HTMLParser
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterator
 
 import pytest
 
 REPO = Path(__file__).resolve().parents[1]
+
+#: How long a page action or expectation, one timed step of a session, a notebook's kernel and
+#: running every cell may take (generous: CI machines are shared).
+PAGE_TIMEOUT_MS = 60_000
+STEP_TIMEOUT_MS = 30_000
+KERNEL_TIMEOUT_S = 180.0
+RUN_TIMEOUT_S = 240.0
 
 #: The kernel spec the test notebooks name; written into the private Jupyter data folder.
 KERNEL_NAME = "bitprism-browser-test"
@@ -237,6 +247,62 @@ def start_lab(root: Path, home: Path, *, timeout: float = 180.0, attempts: int =
         last = server.log_tail()
         stop_lab(server)
     raise RuntimeError(f"JupyterLab did not start after {attempts} attempts; last log:\n{last}")
+
+
+def lab_page(browser: Any, lab: LabServer) -> tuple[Any, list[str]]:
+    """A 1280x1000 page that reaches only the lab (and data:/blob: URLs), with the page
+    timeout set, and the list its script errors are collected in."""
+    page = browser.new_page(viewport={"width": 1280, "height": 1000})
+    page.set_default_timeout(PAGE_TIMEOUT_MS)
+    block_network(page, (lab.base_url, "data:", "blob:"))
+    errors: list[str] = []
+    page.on("pageerror", lambda exc: errors.append(str(exc)))
+    return page, errors
+
+
+def element_shot(page: Any, element: Any, path: Path) -> None:
+    """Screenshot one widget whole: grow the window so JupyterLab's notebook panel (which
+    scrolls inside itself) shows all of it, let the layout settle, then put the window back."""
+    size = page.viewport_size
+    box = element.bounding_box()
+    if box is not None and box["height"] + 250 > size["height"]:
+        page.set_viewport_size({"width": size["width"], "height": int(box["height"]) + 250})
+    try:
+        element.scroll_into_view_if_needed()
+        page.wait_for_timeout(200)
+        element.screenshot(path=str(path))
+    finally:
+        page.set_viewport_size(size)
+
+
+@contextmanager
+def running_lab(root: Path, home: Path) -> Iterator[LabServer]:
+    """A private JupyterLab serving ``root`` for the length of a ``with`` block."""
+    server = start_lab(root, home)
+    try:
+        yield server
+    finally:
+        stop_lab(server)
+
+
+class _Text(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__(convert_charrefs=True)
+        self.parts: list[str] = []
+
+    def handle_data(self, data: str) -> None:
+        self.parts.append(data)
+
+
+def markup_text(markup: str, collapse: bool = False) -> str:
+    """The text of some markup as a browser holds it (``collapse``: style blocks dropped and
+    whitespace collapsed, as the page shows it)."""
+    if collapse:
+        markup = re.sub(r"<style>.*?</style>", "", markup, flags=re.DOTALL)
+    p = _Text()
+    p.feed(markup)
+    text = "".join(p.parts)
+    return " ".join(text.split()) if collapse else text
 
 
 def stop_lab(server: LabServer) -> None:

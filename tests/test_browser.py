@@ -22,19 +22,22 @@ import pytest
 
 from browser_support import (
     ARM_TIMER_JS,
+    KERNEL_TIMEOUT_S,
     NOTEBOOK_READY_JS,
+    PAGE_TIMEOUT_MS,
     READ_TIMER_JS,
     RUN_ALL_JS,
+    RUN_TIMEOUT_S,
     SAVE_JS,
     LabServer,
-    block_network,
+    element_shot,
+    lab_page,
     launch_chromium,
     nbconvert_html,
     open_offline,
     output_dir,
     require,
-    start_lab,
-    stop_lab,
+    running_lab,
     wait_for_cells,
     write_notebook,
 )
@@ -42,10 +45,7 @@ from browser_support import (
 pytestmark = pytest.mark.browser
 
 # Generous: CI machines are shared and loaded.
-PAGE_TIMEOUT_MS = 60_000
-EXPECT_TIMEOUT_MS = 60_000
-KERNEL_TIMEOUT_S = 180.0
-RUN_TIMEOUT_S = 240.0
+EXPECT_TIMEOUT_MS = PAGE_TIMEOUT_MS
 
 NOTEBOOK = "browser_check.ipynb"
 NO_SNAPSHOT = (
@@ -86,11 +86,8 @@ def lab(browser_path: str, tmp_path_factory: pytest.TempPathFactory) -> Iterator
     root = tmp_path_factory.mktemp("lab-root")
     home = tmp_path_factory.mktemp("lab-home")
     write_notebook(root / NOTEBOOK, [PRISM_CELL, TENSOR_CELL])
-    server = start_lab(root, home)
-    try:
+    with running_lab(root, home) as server:
         yield server
-    finally:
-        stop_lab(server)
 
 
 def _timed(page: Any, selector: str, text: str, trigger: str) -> None:
@@ -101,20 +98,6 @@ def _timed(page: Any, selector: str, text: str, trigger: str) -> None:
 def _read_timer(page: Any) -> float:
     ms = page.wait_for_function(READ_TIMER_JS, timeout=EXPECT_TIMEOUT_MS).json_value()
     return round(float(ms), 1)
-
-
-def _element_shot(page: Any, element: Any, path: Path) -> None:
-    """Screenshot one widget whole: grow the window so JupyterLab's notebook panel (which
-    scrolls inside itself) shows all of it, then put the window back."""
-    size = page.viewport_size
-    box = element.bounding_box()
-    if box is not None and box["height"] + 250 > size["height"]:
-        page.set_viewport_size({"width": size["width"], "height": int(box["height"]) + 250})
-    try:
-        element.scroll_into_view_if_needed()
-        element.screenshot(path=str(path))
-    finally:
-        page.set_viewport_size(size)
 
 
 def _bits_text(band_bits: Any) -> str:
@@ -131,11 +114,7 @@ def test_widgets_in_jupyterlab(lab: LabServer, browser_path: str) -> None:
     with sync_playwright() as pw:
         browser = launch_chromium(pw, browser_path)
         try:
-            page = browser.new_page(viewport={"width": 1280, "height": 1000})
-            page.set_default_timeout(PAGE_TIMEOUT_MS)
-            block_network(page, (lab.base_url, "data:", "blob:"))
-            console_errors: list[str] = []
-            page.on("pageerror", lambda exc: console_errors.append(str(exc)))
+            page, console_errors = lab_page(browser, lab)
 
             # ----- open the notebook and run it once the kernel is really there ---------------
             page.goto(lab.url(f"lab/tree/{NOTEBOOK}"), wait_until="domcontentloaded")
@@ -185,7 +164,7 @@ def test_widgets_in_jupyterlab(lab: LabServer, browser_path: str) -> None:
                 "65520"
             )
             page.screenshot(path=str(out / "02-prism-typed-65520.png"))
-            _element_shot(page, prism, out / "prism-65520.png")
+            element_shot(page, prism, out / "prism-65520.png")
 
             # ----- click a bit tile: the top trailing-significand bit turns Inf into a quiet NaN --
             tile = prism.locator('.bitprism-bit[title^="float16 bit 9:"]')
@@ -306,7 +285,7 @@ def _tensor_prism_steps(page: Any, expect: Any, out: Path, report: dict[str, Any
     expect(inner).to_contain_text(f"cell [{first_nan[0]}, {first_nan[1]}]")
     tp.locator(".bitprism-grid").scroll_into_view_if_needed()
     page.screenshot(path=str(out / "05-tensorprism-next-nan.png"))
-    _element_shot(page, tp, out / "tensorprism-next-nan.png")
+    element_shot(page, tp, out / "tensorprism-next-nan.png")
 
     # ----- value view: labels and colours arrive as short cell updates ----------------------
     # (only the traits that changed, no buffer_paths; a colour is a reference to a shared

@@ -25,33 +25,33 @@ import math
 import re
 import statistics
 import time
-from html.parser import HTMLParser
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
 import pytest
 from browser_support import (
+    KERNEL_TIMEOUT_S,
     NOTEBOOK_READY_JS,
+    PAGE_TIMEOUT_MS,
     RUN_ALL_JS,
+    RUN_TIMEOUT_S,
+    STEP_TIMEOUT_MS,
     LabServer,
-    block_network,
+    element_shot,
+    lab_page,
     launch_chromium,
+    markup_text,
     output_dir,
     output_width,
     require,
+    running_lab,
     set_theme,
-    start_lab,
-    stop_lab,
     wait_for_cells,
     write_notebook,
 )
 
 pytestmark = pytest.mark.browser
 
-PAGE_TIMEOUT_MS = 60_000
-STEP_TIMEOUT_MS = 30_000
-KERNEL_TIMEOUT_S = 180.0
-RUN_TIMEOUT_S = 240.0
 REPO = Path(__file__).resolve().parents[1]
 
 NOTEBOOK = "prism_ruler.ipynb"
@@ -75,41 +75,23 @@ def lab(browser_path: str, tmp_path_factory: pytest.TempPathFactory) -> Iterator
     root = tmp_path_factory.mktemp("lab-root")
     home = tmp_path_factory.mktemp("lab-home")
     write_notebook(root / NOTEBOOK, [CELL])
-    server = start_lab(root, home)
-    try:
+    with running_lab(root, home) as server:
         yield server
-    finally:
-        stop_lab(server)
 
 
 # ----- what the page must show: text of the shadow Prism's markup --------------------------------
-class _Text(HTMLParser):
-    def __init__(self) -> None:
-        super().__init__()
-        self.parts: list[str] = []
-
-    def handle_data(self, data: str) -> None:
-        self.parts.append(data)
-
-
-def _text(markup: str) -> str:
-    p = _Text()
-    p.feed(markup)
-    return "".join(p.parts)
-
-
 def _expected(shadow: Any) -> list[str]:
     """Strings the page's Prism must contain once it shows the shadow's state: the input
     and options lines, every verdict's words, every band's hex code and the toolbar's label."""
     from bitprism.render.verdicts import exact_input_text, options_text, verdict
 
     c = shadow.comparison
-    want = [exact_input_text(c), options_text(c), _text(shadow.toolbar.label.value)]
+    want = [exact_input_text(c), options_text(c), markup_text(shadow.toolbar.label.value)]
     if shadow.message:  # e.g. "no value above" at the end of the range
         want.append(shadow.message)
     for band, row in zip(shadow._bands, c.rows):
         want.append(verdict(c, row)[1])
-        want.append(_text(band.fields.value).split(" · ")[0])  # the hex code
+        want.append(markup_text(band.fields.value).split(" · ")[0])  # the hex code
     return want
 
 
@@ -211,19 +193,6 @@ def _size_for_output(page: Any, target: int, start: int) -> float:
         width += int(round(target - got))
     assert got is not None
     return got
-
-
-def _prism_shot(page: Any, prism: Any, path: Path) -> None:
-    size = page.viewport_size
-    box = prism.bounding_box()
-    if box is not None and box["height"] + 250 > size["height"]:
-        page.set_viewport_size({"width": size["width"], "height": int(box["height"]) + 250})
-    try:
-        prism.scroll_into_view_if_needed()
-        page.wait_for_timeout(200)
-        prism.screenshot(path=str(path))
-    finally:
-        page.set_viewport_size(size)
 
 
 # ----- the session: (name, action on the page, the same action on the shadow) ---------------------
@@ -369,11 +338,7 @@ def test_prism_ruler_in_jupyterlab(lab: LabServer, browser_path: str) -> None:
     with sync_playwright() as pw:
         browser = launch_chromium(pw, browser_path)
         try:
-            page = browser.new_page(viewport={"width": 1280, "height": 1000})
-            page.set_default_timeout(PAGE_TIMEOUT_MS)
-            block_network(page, (lab.base_url, "data:", "blob:"))
-            errors: list[str] = []
-            page.on("pageerror", lambda exc: errors.append(str(exc)))
+            page, errors = lab_page(browser, lab)
             page.goto(lab.url(f"lab/tree/{NOTEBOOK}"), wait_until="domcontentloaded")
             page.wait_for_function(NOTEBOOK_READY_JS, arg=NOTEBOOK,
                                    timeout=KERNEL_TIMEOUT_S * 1000)
@@ -396,14 +361,14 @@ def test_prism_ruler_in_jupyterlab(lab: LabServer, browser_path: str) -> None:
                     bad = page.evaluate(OVERFLOW_JS)
                     assert not bad, f"at {got:.0f} px ({'dark' if dark else 'light'}): {bad}"
                     name = f"prism-ruler-{target}-{'dark' if dark else 'light'}.png"
-                    _prism_shot(page, prism, out / name)
+                    element_shot(page, prism, out / name)
                     shots[name] = round(got)
                 if target == 848:
                     heights = page.evaluate(LINES_JS)
                     # one line of bits over the zone strip: never two lines of bits
                     assert heights and max(heights) < 2 * 15 + 12, heights
                     set_theme(page, False)
-                    _prism_shot(page, prism, REPO / "docs" / "screenshots" /
+                    element_shot(page, prism, REPO / "docs" / "screenshots" /
                                 "prism-overflow-to-inf.png")
             set_theme(page, False)
             report["screenshots"] = shots  # name -> output column width (px)
@@ -417,11 +382,11 @@ def test_prism_ruler_in_jupyterlab(lab: LabServer, browser_path: str) -> None:
             for i, step in enumerate(_session(), start=1):
                 rows.append((i, step[0], _run_step(page, prism, shadow, step)))
             report["session_s"] = round(time.monotonic() - t0, 1)
-            _prism_shot(page, prism, out / "prism-after-session.png")
+            element_shot(page, prism, out / "prism-after-session.png")
             for v in ("0.1", "1e-8"):  # two more looks: bits dropped, zones crossed
                 step = next(st for st in _session_value_steps(v))
                 _run_step(page, prism, shadow, step)
-                _prism_shot(page, prism, out / f"prism-ruler-{v}-848-light.png")
+                element_shot(page, prism, out / f"prism-ruler-{v}-848-light.png")
             assert not errors, f"errors in the page: {errors}"
         finally:
             browser.close()

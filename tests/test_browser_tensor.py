@@ -27,7 +27,6 @@ import re
 import statistics
 import time
 import urllib.request
-from html.parser import HTMLParser
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
@@ -35,30 +34,31 @@ import pytest
 
 from browser_support import (
     KERNEL_NAME,
+    KERNEL_TIMEOUT_S,
     NOTEBOOK_READY_JS,
+    PAGE_TIMEOUT_MS,
     REPO,
     RUN_ALL_JS,
+    RUN_TIMEOUT_S,
     SAVE_JS,
+    STEP_TIMEOUT_MS,
     LabServer,
-    block_network,
+    element_shot,
+    lab_page,
     launch_chromium,
+    markup_text,
     nbconvert_html,
     open_offline,
     output_dir,
     require,
+    running_lab,
     set_theme,
-    start_lab,
-    stop_lab,
     wait_for_cells,
     write_notebook,
 )
 
 pytestmark = pytest.mark.browser
 
-PAGE_TIMEOUT_MS = 60_000
-STEP_TIMEOUT_MS = 30_000
-KERNEL_TIMEOUT_S = 180.0
-RUN_TIMEOUT_S = 240.0
 INTERACTIONS = 100
 # Targets: p95 under 300 ms with no upward trend. Asserted with a margin for loaded CI
 # machines; the real figures are written to tensor-session.json and printed.
@@ -128,11 +128,8 @@ def lab(browser_path: str, tmp_path_factory: pytest.TempPathFactory) -> Iterator
     expose = json.dumps({"JupyterNotebookApp": {"expose_app_in_browser": True}})
     for name in ("jupyter_server_config.json", "jupyter_notebook_config.json"):
         (home / "config" / name).write_text(expose)
-    server = start_lab(root, home)
-    try:
+    with running_lab(root, home) as server:
         yield server
-    finally:
-        stop_lab(server)
 
 
 # ----- in-page timing: from the event to the exact text the twin predicts ----------------------
@@ -180,33 +177,16 @@ WATCHED = {  # what a step may change, in the order the widget updates them (las
 }
 
 
-class _Text(HTMLParser):
-    def __init__(self) -> None:
-        super().__init__(convert_charrefs=True)
-        self.parts: list[str] = []
-
-    def handle_data(self, data: str) -> None:
-        self.parts.append(data)
-
-
-def _text(markup: str) -> str:
-    """The text a browser shows for markup, whitespace collapsed (style blocks dropped)."""
-    markup = re.sub(r"<style>.*?</style>", "", markup, flags=re.DOTALL)
-    p = _Text()
-    p.feed(markup)
-    return " ".join("".join(p.parts).split())
-
-
 def _twin_texts(tp: Any) -> dict[str, str]:
     from bitprism.render.grid_html import legend_html
 
     caption = tp.prism.caption if tp.prism is not None else ""
     return {
         "caption": caption,
-        "legend": _text(legend_html(tp._paint).split("</div>")[0]),
-        "count": _text(tp.nav_counts["overflow"].value),
-        "position": _text(tp.position_html.value),
-        "message": _text(tp.message_html.value),
+        "legend": markup_text(legend_html(tp._paint).split("</div>")[0], collapse=True),
+        "count": markup_text(tp.nav_counts["overflow"].value, collapse=True),
+        "position": markup_text(tp.position_html.value, collapse=True),
+        "message": markup_text(tp.message_html.value, collapse=True),
     }
 
 
@@ -419,19 +399,6 @@ def _fit_output(page: Any, target: float) -> float:
     return float(_widget_output_width(page) or 0)
 
 
-def _shot(page: Any, element: Any, path: Path) -> None:
-    size = page.viewport_size
-    box = element.bounding_box()
-    if box is not None and box["height"] + 250 > size["height"]:
-        page.set_viewport_size({"width": size["width"], "height": int(box["height"]) + 250})
-    try:
-        element.scroll_into_view_if_needed()
-        page.wait_for_timeout(200)
-        element.screenshot(path=str(path))
-    finally:
-        page.set_viewport_size(size)
-
-
 def _check_fit(page: Any, width: int, report: dict[str, Any]) -> None:
     fit = page.evaluate(FIT_JS, TP)
     report[f"fit_{width}"] = fit
@@ -472,11 +439,7 @@ def test_tensorprism_session(lab: LabServer, browser_path: str) -> None:
     with sync_playwright() as pw:
         browser = launch_chromium(pw, browser_path)
         try:
-            page = browser.new_page(viewport={"width": 1280, "height": 1000})
-            page.set_default_timeout(PAGE_TIMEOUT_MS)
-            block_network(page, (lab.base_url, "data:", "blob:"))
-            errors: list[str] = []
-            page.on("pageerror", lambda exc: errors.append(str(exc)))
+            page, errors = lab_page(browser, lab)
             _open(page, lab, f"lab/tree/{SESSION}", SESSION)
             _run_all(page)
             report["output_848"] = _fit_output(page, 848)
@@ -491,11 +454,11 @@ def test_tensorprism_session(lab: LabServer, browser_path: str) -> None:
             expect(caption).to_have_text(twin.prism.caption)
             assert "0xffc00000" in twin.prism.caption
             _check_fit(page, 848, report)
-            _shot(page, tp, out / "tensorprism-848-light.png")
-            _shot(page, tp, out / "tensorprism-next-nan.png")
+            element_shot(page, tp, out / "tensorprism-848-light.png")
+            element_shot(page, tp, out / "tensorprism-next-nan.png")
             set_theme(page, dark=True)
             _check_dark(page, report)
-            _shot(page, tp, out / "tensorprism-848-dark.png")
+            element_shot(page, tp, out / "tensorprism-848-dark.png")
             set_theme(page, dark=False)
 
             # ----- 100 interactions, each timed to the view the twin predicts -------------
@@ -521,10 +484,10 @@ def test_tensorprism_session(lab: LabServer, browser_path: str) -> None:
             tp.scroll_into_view_if_needed()
             page.wait_for_timeout(300)
             _check_fit(page, 468, report)
-            _shot(page, tp, out / "tensorprism-468-light.png")
+            element_shot(page, tp, out / "tensorprism-468-light.png")
             set_theme(page, dark=True)
             _check_dark(page, report)
-            _shot(page, tp, out / "tensorprism-468-dark.png")
+            element_shot(page, tp, out / "tensorprism-468-dark.png")
             set_theme(page, dark=False)
             _fit_output(page, 848)
 
@@ -607,7 +570,7 @@ def _pin_save_reopen(page: Any, lab: LabServer, expect: Any, out: Path,
     assert texts[0] == "<hidden>", texts
     pin_outputs = [t for t in texts if "pinned TensorPrism view" in t]
     assert len(pin_outputs) == 1 and "model not found" not in pin_outputs[0]
-    _shot(page, cell, out / "tensorprism-reopened-without-kernel.png")
+    element_shot(page, cell, out / "tensorprism-reopened-without-kernel.png")
 
 
 def test_example_notebook_in_notebook_7(lab: LabServer, browser_path: str) -> None:
@@ -621,11 +584,7 @@ def test_example_notebook_in_notebook_7(lab: LabServer, browser_path: str) -> No
     with sync_playwright() as pw:
         browser = launch_chromium(pw, browser_path)
         try:
-            page = browser.new_page(viewport={"width": 1280, "height": 1000})
-            page.set_default_timeout(PAGE_TIMEOUT_MS)
-            block_network(page, (lab.base_url, "data:", "blob:"))
-            errors: list[str] = []
-            page.on("pageerror", lambda exc: errors.append(str(exc)))
+            page, errors = lab_page(browser, lab)
             _open(page, lab, f"notebooks/{EXAMPLE}", EXAMPLE)
             assert "/notebooks/" in page.url and page.locator("#main-panel, .jp-NotebookPanel").count()
             page.wait_for_timeout(1000)
@@ -651,7 +610,7 @@ def test_example_notebook_in_notebook_7(lab: LabServer, browser_path: str) -> No
             page.wait_for_function(
                 "([el, old]) => el.innerText !== old", arg=[prism.element_handle(), before],
                 timeout=PAGE_TIMEOUT_MS)
-            _shot(page, tp, out / "notebook7-tensorprism.png")
+            element_shot(page, tp, out / "notebook7-tensorprism.png")
             assert errors == loading, f"errors in the page: {errors[len(loading):]}"
         finally:
             browser.close()
